@@ -1,0 +1,85 @@
+"""Command line: ``main(argv) -> int``. The cli package is the only place that prints.
+
+Each subcommand lives in its own module with ``add_parser(subparsers)`` and ``execute(args) -> int``.
+Exit status: 0 done; 2 invalid input (message on stderr, nothing written); 1 internal error;
+130 / 143 interrupted by SIGINT / SIGTERM.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import signal
+import sys
+import traceback
+
+from mcmatch import __version__
+from mcmatch.errors import ConfigError, SolveError
+
+#: Subcommand modules, in the order `mcmatch --help` lists them.
+COMMANDS = ("run", "check", "templates", "new", "report", "bench", "placements")
+
+
+class _Terminated(Exception):  # noqa: N818 - internal signal, not an error
+    pass
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="mcmatch",
+        description="Pre-layout Monte Carlo mismatch, corner and area analysis of MOS bias circuits.",
+    )
+    parser.add_argument("--version", action="version", version=f"mcmatch {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMANDS:
+        try:
+            module = importlib.import_module(f"mcmatch.cli.{name}")
+        except ModuleNotFoundError as exc:  # a subcommand not built yet
+            if exc.name != f"mcmatch.cli.{name}":
+                raise
+            continue
+        module.add_parser(sub)
+    return parser
+
+
+def _on_sigterm(signum, frame):  # noqa: ARG001
+    raise _Terminated()
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse: 2 for usage errors, 0 for --help
+        return int(exc.code or 0)
+    if not getattr(args, "command", None):
+        parser.print_help(sys.stderr)
+        return 2
+    previous = None
+    try:
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not the main thread (tests in threads): leave SIGTERM alone
+        previous = None
+    try:
+        return int(args.execute(args))
+    except ConfigError as exc:
+        print(f"mcmatch: error: {exc}", file=sys.stderr)
+        return 2
+    except SolveError as exc:
+        print(f"mcmatch: error: {exc.message}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("mcmatch: interrupted; nothing was written", file=sys.stderr)
+        return 130
+    except _Terminated:
+        print("mcmatch: terminated; nothing was written", file=sys.stderr)
+        return 143
+    except BrokenPipeError:
+        return 1
+    except Exception as exc:  # an internal error: say so, with the traceback for a bug report
+        traceback.print_exc(file=sys.stderr)
+        print(f"mcmatch: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
+        return 1
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)

@@ -1,0 +1,76 @@
+"""The result table (one row per sample, SI columns) and atomic writers of a run folder."""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+
+def to_frame(columns: dict[str, np.ndarray]) -> pd.DataFrame:
+    """Tidy table: `sample`, `converged`, then measures, then the mismatch draws dvth_* [V] and dbeta_* [1]."""
+    return pd.DataFrame(columns)
+
+
+def write_json(path: Path, data: dict) -> None:
+    path.write_text(json.dumps(data, indent=2, allow_nan=False, default=_json_default) + "\n", encoding="utf-8")
+
+
+def _json_default(value: object) -> object:
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return float(value)
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    raise TypeError(f"not JSON serialisable: {type(value).__name__}")
+
+
+def write_samples(path: Path, table: pd.DataFrame) -> None:
+    """CSV with full float precision (repr round-trips), or parquet for a .parquet path."""
+    if path.suffix == ".parquet":
+        table.to_parquet(path, index=False)
+    else:
+        table.to_csv(path, index=False, float_format="%.17g")
+
+
+def read_samples(path: Path) -> pd.DataFrame:
+    if Path(path).suffix == ".parquet":
+        return pd.read_parquet(path)
+    return pd.read_csv(path)
+
+
+def write_run_folder(out_dir: Path, writer: Callable[[Path], None]) -> None:
+    """Write a whole run folder atomically: `writer` fills a temporary sibling folder, which then replaces out_dir.
+
+    A previous complete run in out_dir stays untouched until the new one is complete; on any error the temporary
+    folder is removed and nothing is left half-written.
+    """
+    out_dir = Path(out_dir)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-", dir=out_dir.parent))
+    try:
+        writer(tmp)
+        for f in tmp.iterdir():
+            if f.is_file():
+                with open(f, "rb") as handle:
+                    os.fsync(handle.fileno())
+        old = None
+        if out_dir.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.old-", dir=out_dir.parent))
+            old.rmdir()
+            os.replace(out_dir, old)
+        os.replace(tmp, out_dir)
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise

@@ -1,0 +1,95 @@
+"""Quantity strings at the edge ("4 um", "5 mV*um", "1 %*um", "27 degC") to SI floats.
+
+This is the only module that uses pint. Nothing it returns is a pint object: callers get plain floats in the SI
+unit they asked for, so nothing unit-aware ever crosses a process boundary.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from functools import lru_cache
+
+_NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+
+#: Human-readable examples per SI unit, used in error messages.
+EXAMPLES = {
+    "m": "'4 um'",
+    "A": "'10 uA'",
+    "V": "'1.8 V'",
+    "K": "'27 degC' or '300 K'",
+    "ohm": "'10 kohm'",
+    "1": "'1 %' or 0.01",
+    "A/V^2": "'300 uA/V^2'",
+    "1/V": "'0.05 1/V'",
+    "m/V": "'0.08 um/V'",
+    "V^0.5": "'0.4 V^0.5'",
+    "V*m": "'5 mV*um'",
+    "V/K": "'-1 mV/K'",
+    "V/m": "'0.02 mV/um'",
+    "1/m": "'0.001 %/um'",
+    "S": "'1 uS'",
+}
+
+
+class UnitError(ValueError):
+    """A value that is not a quantity of the expected dimension; the message says what was expected."""
+
+
+@lru_cache(maxsize=1)
+def _registry():
+    import pint
+
+    registry = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    return registry
+
+
+@lru_cache(maxsize=512)
+def _unit_factor(unit_text: str, target: str) -> tuple[float, float]:
+    """Return (scale, offset) with value_in_target = scale * number + offset for `unit_text`; raise UnitError."""
+    registry = _registry()
+    text = unit_text.replace("%", " percent ").replace("Ω", "ohm").replace("µ", "u").strip()
+    if text in ("", "1"):
+        text = "dimensionless"
+    target_text = "dimensionless" if target == "1" else target
+    try:
+        unit = registry.parse_units(text) if text != "dimensionless" else registry.dimensionless
+        target_unit = registry.parse_units(target_text) if target_text != "dimensionless" else registry.dimensionless
+        q0 = registry.Quantity(0.0, unit).to(target_unit).magnitude
+        q1 = registry.Quantity(1.0, unit).to(target_unit).magnitude
+    except Exception as exc:  # pint raises many kinds on odd input; all mean the same to a user
+        raise UnitError(f"unit '{unit_text}' is not a unit of {target_text}: {type(exc).__name__}") from None
+    return float(q1 - q0), float(q0)
+
+
+def parse_quantity(value: object, unit: str) -> float:
+    """Parse `value` (a string with a unit, or a plain number meaning SI) into a finite float in `unit`.
+
+    `unit` is the SI unit wanted, for example "m", "A/V^2", "K" or "1" for dimensionless.
+    Raises UnitError with an example of what is expected.
+    """
+    example = EXAMPLES.get(unit, f"a quantity in {unit}")
+    expected = f"expected a quantity in {unit} such as {example}"
+    if isinstance(value, bool):
+        raise UnitError(f"{expected}, got {value!r}")
+    if isinstance(value, (int, float)):
+        number = float(value)
+        if not math.isfinite(number):
+            raise UnitError(f"{expected}, got the non-finite number {value!r}")
+        return number
+    if not isinstance(value, str):
+        raise UnitError(f"{expected}, got {type(value).__name__} {value!r}")
+    match = _NUMBER.match(value)
+    if not match:
+        raise UnitError(f"{expected}, got {value!r}")
+    number_text, unit_text = match.groups()
+    if unit_text == "":  # a bare number in a string means SI, as a plain number does
+        return parse_quantity(float(number_text), unit)
+    try:
+        scale, offset = _unit_factor(unit_text, unit)
+    except UnitError as exc:
+        raise UnitError(f"{expected}, got {value!r} ({exc})") from None
+    result = scale * float(number_text) + offset
+    if not math.isfinite(result):
+        raise UnitError(f"{expected}, got {value!r}, which is not finite in SI")
+    return result
