@@ -88,6 +88,9 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
             "nodes": {n: float(study.x_nominal[i]) for i, n in enumerate(study.circuit.nodes)},
         },
         "conditions": {"corner": "tt", "temperature": float(config.temperature)},
+        "circuit": config.circuit.model_dump(by_alias=True, exclude_none=True),
+        "technology": config.technology.model_dump(by_alias=True),
+        "specs": {k: {"min": v.min, "max": v.max, "unit": config.measures[k].unit} for k, v in config.specs.items()},
         "run": {
             "mcmatch_version": __version__,
             "config": config.path,
@@ -98,6 +101,8 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
             "machine": f"{platform.system()} {platform.machine()}, {platform.node()}",
         },
     }
+    # analyses (corners, area, contributions, yield extras) work from the summary, never from raw main-run rows
+    # -- hook: summary.update(run_analyses(config, study, summary, options))
     table = to_frame(columns)
     summary["run"]["run_time_s"] = time.perf_counter() - started
     return RunResult(summary=summary, table=table, study=study)
