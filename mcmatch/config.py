@@ -411,7 +411,13 @@ def validation_to_config_error(
     exc: ValidationError, file: str, model: type[BaseModel], prefix: str = ""
 ) -> ConfigError:
     """The first problem of a pydantic ValidationError as a ConfigError with file, key path and expectation."""
-    err = exc.errors(include_url=False)[0]
+    errors = exc.errors(include_url=False)
+    # a misspelt key shows up as one unknown key plus one missing key: report the unknown one, naming the missing
+    extra = [e for e in errors if e.get("type") == "extra_forbidden"]
+    err = extra[0] if extra else errors[0]
+    missing = [
+        str(e["loc"][-1]) for e in errors if e.get("type") == "missing" and tuple(e["loc"][:-1]) == tuple(err["loc"][:-1])
+    ]
     loc = tuple(err.get("loc", ()))
     loc = tuple(p for p in loc if not (isinstance(p, str) and (p.startswith("function-") or p in _UNION_TAGS)))
     path = key_path(loc, prefix)
@@ -422,6 +428,8 @@ def validation_to_config_error(
     if kind == "extra_forbidden":
         known = _known_fields(model, loc)
         guess = difflib.get_close_matches(str(loc[-1]), known, n=1) if loc else []
+        if not guess and missing:
+            guess = missing[:1]
         msg = "unknown key" + (f"; did you mean '{guess[0]}'?" if guess else "")
         if known:
             msg += f" (expected one of: {', '.join(sorted(known))})"
@@ -610,11 +618,20 @@ def check_netlist(netlist: Netlist, technology: Technology, file: str) -> None:
             )
 
 
+_TERMINAL_KEYS = {
+    "mosfet": ("drain", "gate", "source", "bulk"),
+    "current_source": ("from", "to"),
+    "voltage_source": ("plus", "minus"),
+    "resistor": ("a", "b"),
+}
+
+
 def _first_use(netlist: Netlist, node: str) -> str:
     for kind in ("mosfet", "current_source", "voltage_source", "resistor"):
         for i, element in enumerate(getattr(netlist, kind)):
-            if node in terminals(element):
-                return f"circuit.{kind}[{i}]"
+            for key, name in zip(_TERMINAL_KEYS[kind], terminals(element), strict=True):
+                if name == node:
+                    return f"circuit.{kind}[{i}].{key}"
     return "circuit"
 
 
