@@ -415,9 +415,8 @@ def validation_to_config_error(
     # a misspelt key shows up as one unknown key plus one missing key: report the unknown one, naming the missing
     extra = [e for e in errors if e.get("type") == "extra_forbidden"]
     err = extra[0] if extra else errors[0]
-    missing = [
-        str(e["loc"][-1]) for e in errors if e.get("type") == "missing" and tuple(e["loc"][:-1]) == tuple(err["loc"][:-1])
-    ]
+    parent = tuple(err["loc"][:-1])
+    missing = [str(e["loc"][-1]) for e in errors if e.get("type") == "missing" and tuple(e["loc"][:-1]) == parent]
     loc = tuple(err.get("loc", ()))
     loc = tuple(p for p in loc if not (isinstance(p, str) and (p.startswith("function-") or p in _UNION_TAGS)))
     path = key_path(loc, prefix)

@@ -33,7 +33,7 @@ CASES = [
     ("misspelt key", 'w = "4 um"\nl = "2 um"\nm = 1', 'widht = "4 um"\nl = "2 um"\nm = 1', "circuit.mosfet[0]"),
     ("width in volts", 'w = "4 um"\nl = "2 um"\nm = 1', 'w = "5 V"\nl = "2 um"\nm = 1', "circuit.mosfet[0].w"),
     ("unknown node in measure", 'v_nb = { voltage = "nb" }', 'v_nb = { voltage = "nbb" }', "measures.v_nb.voltage"),
-    ("unknown device in ratio", 'ratio = ["MOUT", "IREF"]', 'ratio = ["MOUTT", "IREF"]', "measures.gain_error.ratio[0]"),
+    ("unknown device in ratio", 'ratio = ["MOUT", "IREF"]', 'ratio = ["MOUTT", "IREF"]', "gain_error.ratio[0]"),
     ("spec of unknown measure", "gain_error = { min", "gain_errr = { min", "specs.gain_errr"),
     ("spec in wrong unit", 'min = "-2 %"', 'min = "-2 mV"', "specs.gain_error.min"),
     ("duplicate name", 'name = "MOUT"', 'name = "MREF"', "circuit.mosfet[1].name"),

@@ -25,17 +25,45 @@ TEXTBOOK = {
 }
 REALISTIC = {
     "name": "square law with lambda and body effect",
-    "nmos": {"kprime": "300 uA/V^2", "vth0": "0.45 V", "lambda_l": "0.08 um/V", "gamma": "0.45 V^0.5",
-             "phi": "0.85 V", "a_vt": "4.5 mV*um", "a_beta": "1 %*um"},
-    "pmos": {"kprime": "70 uA/V^2", "vth0": "0.48 V", "lambda_l": "0.1 um/V", "gamma": "0.4 V^0.5",
-             "phi": "0.8 V", "a_vt": "5 mV*um", "a_beta": "1 %*um"},
+    "nmos": {
+        "kprime": "300 uA/V^2",
+        "vth0": "0.45 V",
+        "lambda_l": "0.08 um/V",
+        "gamma": "0.45 V^0.5",
+        "phi": "0.85 V",
+        "a_vt": "4.5 mV*um",
+        "a_beta": "1 %*um",
+    },
+    "pmos": {
+        "kprime": "70 uA/V^2",
+        "vth0": "0.48 V",
+        "lambda_l": "0.1 um/V",
+        "gamma": "0.4 V^0.5",
+        "phi": "0.8 V",
+        "a_vt": "5 mV*um",
+        "a_beta": "1 %*um",
+    },
 }
 EKV_TECH = {
     "name": "EKV",
-    "nmos": {"model": "ekv", "kprime": "300 uA/V^2", "vth0": "0.45 V", "lambda": "0.05 1/V", "slope": 1.3,
-             "a_vt": "4.5 mV*um", "a_beta": "1 %*um"},
-    "pmos": {"model": "ekv", "kprime": "70 uA/V^2", "vth0": "0.48 V", "lambda": "0.05 1/V", "slope": 1.35,
-             "a_vt": "5 mV*um", "a_beta": "1 %*um"},
+    "nmos": {
+        "model": "ekv",
+        "kprime": "300 uA/V^2",
+        "vth0": "0.45 V",
+        "lambda": "0.05 1/V",
+        "slope": 1.3,
+        "a_vt": "4.5 mV*um",
+        "a_beta": "1 %*um",
+    },
+    "pmos": {
+        "model": "ekv",
+        "kprime": "70 uA/V^2",
+        "vth0": "0.48 V",
+        "lambda": "0.05 1/V",
+        "slope": 1.35,
+        "a_vt": "5 mV*um",
+        "a_beta": "1 %*um",
+    },
 }
 
 
@@ -239,11 +267,15 @@ def test_one_to_one_mirror_sigma_matches_pelgrom_kinget():
     }
     cfg = build(
         tech,
-        [mos("MREF", "nmos", "nb", "nb", "gnd", w="10 um", l="1 um"),
-         mos("MOUT", "nmos", "out", "nb", "gnd", w="10 um", l="1 um")],
+        [
+            mos("MREF", "nmos", "nb", "nb", "gnd", w="10 um", l="1 um"),
+            mos("MOUT", "nmos", "out", "nb", "gnd", w="10 um", l="1 um"),
+        ],
         [{"name": "IREF", "from": "vdd", "to": "nb", "value": "40 uA"}],
-        [{"name": "VDD", "plus": "vdd", "minus": "gnd", "value": "1.8 V"},
-         {"name": "VOUT", "plus": "out", "minus": "gnd", "value": "1.0 V"}],
+        [
+            {"name": "VDD", "plus": "vdd", "minus": "gnd", "value": "1.8 V"},
+            {"name": "VOUT", "plus": "out", "minus": "gnd", "value": "1.0 V"},
+        ],
         {"err": {"ratio": ["MOUT", "IREF"]}, "v": {"voltage": "nb"}},
         analysis={"samples": 40000, "seed": 11},
     )
