@@ -313,6 +313,58 @@ class Analysis(Frozen):
     contributions: bool = True
 
 
+# --------------------------------------------------------------------------------------------- placement
+class PlacementCandidate(Frozen):
+    """One arrangement of unit cells: one string per row, one letter per cell, first row at y = 0."""
+
+    name: Name
+    rows: list[Annotated[str, Field(min_length=1, max_length=400)]] = Field(min_length=1, max_length=400)
+
+
+class Placement(Frozen):
+    """Unit-cell patterns of matched devices under systematic process gradients (SI units).
+
+    vth_gradient [V/m] and beta_gradient [1/m]: linear terms (d/dx, d/dy); *_quadratic [V/m^2], [1/m^2]: the x^2 and
+    y^2 terms; *_saddle: the x*y term; s_vt [V/m] and s_beta [1/m]: Pelgrom's distance terms (sigma grows as S*D).
+    """
+
+    pitch: tuple[Q("m"), Q("m")]
+    devices: dict[Annotated[str, Field(min_length=1, max_length=1)], Name]
+    dummy: Annotated[str, Field(min_length=1, max_length=1)] = "D"
+    vth_gradient: tuple[Q("V/m"), Q("V/m")] = (0.0, 0.0)
+    beta_gradient: tuple[Q("1/m"), Q("1/m")] = (0.0, 0.0)
+    vth_quadratic: tuple[Q("V/m^2"), Q("V/m^2")] = (0.0, 0.0)
+    beta_quadratic: tuple[Q("1/m^2"), Q("1/m^2")] = (0.0, 0.0)
+    vth_saddle: Q("V/m^2") = 0.0
+    beta_saddle: Q("1/m^2") = 0.0
+    origin: Literal["corner", "center"] = "center"
+    s_vt: Q("V/m") = Field(default=0.0, ge=0)
+    s_beta: Q("1/m") = Field(default=0.0, ge=0)
+    candidate: list[PlacementCandidate] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _letters(self) -> Placement:
+        if self.pitch[0] <= 0 or self.pitch[1] <= 0:
+            raise ValueError("pitch must be positive in x and y")
+        if self.dummy in self.devices:
+            raise ValueError(f"letter '{self.dummy}' is the dummy cell; choose another letter for the device")
+        allowed = set(self.devices) | {self.dummy}
+        names = [c.name for c in self.candidate]
+        if len(set(names)) != len(names):
+            raise ValueError("candidate names must be unique")
+        for c in self.candidate:
+            for row in c.rows:
+                bad = set(row) - allowed
+                if bad:
+                    raise ValueError(
+                        f"candidate '{c.name}' uses letters {sorted(bad)}; expected only {sorted(allowed)}"
+                    )
+            for letter in self.devices:
+                if not any(letter in row for row in c.rows):
+                    raise ValueError(f"candidate '{c.name}' places no cell of device letter '{letter}'")
+        return self
+
+
 # --------------------------------------------------------------------------------------------- top level
 class RawConfig(Frozen):
     title: str = Field(default="", max_length=500)
@@ -322,6 +374,7 @@ class RawConfig(Frozen):
     measures: dict[str, Measure] = Field(default_factory=dict)
     specs: dict[str, Spec] = Field(default_factory=dict)
     analysis: Analysis = Analysis()
+    placement: Placement | None = None
     notes: str = ""
 
 
@@ -337,6 +390,7 @@ class Config(Frozen):
     measures: dict[str, Measure]
     specs: dict[str, Limits]
     analysis: Analysis
+    placement: Placement | None = None
     notes: str = ""
     text: str = ""
     technology_text: str = ""
@@ -512,6 +566,7 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
     check_measures(measures, netlist, file)
     specs = parse_specs(parsed.specs, measures, file)
     check_analysis(parsed.analysis, netlist, technology, file)
+    check_placement(parsed.placement, netlist, file)
     temperature = parsed.temperature if parsed.temperature is not None else technology.nominal_temperature
     return Config(
         title=parsed.title or path.stem,
@@ -523,6 +578,7 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
         measures=measures,
         specs=specs,
         analysis=parsed.analysis,
+        placement=parsed.placement,
         notes=parsed.notes,
         text=text,
         technology_text=tech_text,
@@ -702,3 +758,13 @@ def check_analysis(analysis: Analysis, netlist: Netlist, technology: Technology,
         for i, name in enumerate(analysis.area.devices):
             if name not in mosfets:
                 raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=f"analysis.area.devices[{i}]")
+
+
+def check_placement(placement: Placement | None, netlist: Netlist, file: str) -> None:
+    """Placement letters name MOSFETs of the netlist."""
+    if placement is None:
+        return
+    mosfets = {m.name for m in netlist.mosfet}
+    for letter, name in placement.devices.items():
+        if name not in mosfets:
+            raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=f"placement.devices.{letter}")

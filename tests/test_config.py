@@ -105,7 +105,7 @@ def test_command_line_overrides_are_validated(tmp_path, capsys):
 
 def test_inline_technology_and_quantities_in_si(tmp_path):
     # Common practice, no source: plain numbers are SI, strings carry units; both give the same config.
-    tech_inline = TECH_TEXT.split("# Global process corners")[0]
+    tech_inline = TECH_TEXT
     text = DEMO_TEXT.replace('technology = "technologies/demo180.toml"\n', "")
     text = text.replace('w = "4 um"\nl = "2 um"\nm = 1', "w = 4e-6\nl = 2e-6\nm = 1", 1)
     inline = "\n".join(
