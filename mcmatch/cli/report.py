@@ -1,0 +1,28 @@
+"""`mcmatch report RUN_DIR`: re-render report.html of a saved run folder, without solving again."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from mcmatch.report import write_report
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser(
+        "report",
+        help="re-render the HTML design-review report of a run folder from its saved results",
+        description="Re-render RUN_DIR/report.html from summary.json, samples.csv (or .parquet) and config.toml "
+        "written by 'mcmatch run'. Nothing is solved again; the file is replaced atomically.",
+    )
+    p.add_argument("run_dir", metavar="RUN_DIR", help="run folder written by 'mcmatch run'")
+    p.add_argument("--out", help="write the report here instead of RUN_DIR/report.html")
+    p.add_argument("--quiet", action="store_true", help="do not print where the report was written")
+    p.set_defaults(execute=execute)
+
+
+def execute(args: argparse.Namespace) -> int:
+    path = write_report(Path(args.run_dir), Path(args.out) if args.out else None)
+    if not args.quiet:
+        print(f"report written to {path}")
+    return 0
