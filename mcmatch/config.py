@@ -299,6 +299,14 @@ class AreaStudy(Frozen):
 class HighSigma(Frozen):
     method: Literal["importance"] = "importance"
     samples: int = Field(default=20000, ge=100, le=100_000_000)
+    measures: list[Name] | None = None  # spec'd measures to estimate (default: every spec'd measure)
+
+
+class Bank(Frozen):
+    """Joint yield of a multi-output bank: the channels are these spec'd measures (default: every spec'd measure)."""
+
+    measures: list[Name] | None = Field(default=None, min_length=1)
+    samples: int | None = Field(default=None, ge=10, le=100_000_000)
 
 
 class Analysis(Frozen):
@@ -310,6 +318,7 @@ class Analysis(Frozen):
     corners: CornerStudy | None = None
     area: AreaStudy | None = None
     high_sigma: HighSigma | None = None
+    bank: Bank | None = None
     contributions: bool = True
 
 
@@ -340,6 +349,7 @@ class Placement(Frozen):
     origin: Literal["corner", "center"] = "center"
     s_vt: Q("V/m") = Field(default=0.0, ge=0)
     s_beta: Q("1/m") = Field(default=0.0, ge=0)
+    samples: int | None = Field(default=None, ge=10, le=100_000_000)  # Monte Carlo samples per candidate
     candidate: list[PlacementCandidate] = Field(min_length=1)
 
     @model_validator(mode="after")
@@ -554,7 +564,7 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
     if "template" in circuit_raw:
         from mcmatch.templates import expand_template  # templates build on config's types
 
-        circuit_raw, default_measures = expand_template(circuit_raw, file)
+        circuit_raw, default_measures = expand_template(circuit_raw, file, technology, parsed.temperature)
         measures = {**default_measures, **measures}
     try:
         netlist = Netlist.model_validate(circuit_raw)
@@ -566,6 +576,7 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
     check_measures(measures, netlist, file)
     specs = parse_specs(parsed.specs, measures, file)
     check_analysis(parsed.analysis, netlist, technology, file)
+    check_spec_references(parsed.analysis, specs, file)
     check_placement(parsed.placement, netlist, file)
     temperature = parsed.temperature if parsed.temperature is not None else technology.nominal_temperature
     return Config(
@@ -768,3 +779,24 @@ def check_placement(placement: Placement | None, netlist: Netlist, file: str) ->
     for letter, name in placement.devices.items():
         if name not in mosfets:
             raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=f"placement.devices.{letter}")
+
+
+def check_spec_references(analysis: Analysis, specs: dict[str, Limits], file: str) -> None:
+    """Names in [analysis.high_sigma] and [analysis.bank] must be spec'd measures."""
+    for table in ("high_sigma", "bank"):
+        study = getattr(analysis, table, None)
+        if study is None:
+            continue
+        if table == "bank" and not specs:
+            raise ConfigError(
+                "a bank yield needs specs on its channels; add a [specs] entry per channel measure",
+                file=file,
+                key="analysis.bank",
+            )
+        for i, name in enumerate(getattr(study, "measures", None) or []):
+            if name not in specs:
+                raise ConfigError(
+                    f"'{name}' is not a spec'd measure (expected one of: {', '.join(specs) or 'none'})",
+                    file=file,
+                    key=f"analysis.{table}.measures[{i}]",
+                )
