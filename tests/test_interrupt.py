@@ -10,6 +10,7 @@ import sys
 import time
 from pathlib import Path
 
+import psutil
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -38,7 +39,14 @@ def test_signal_mid_run_keeps_previous_output(tmp_path, sig, status):
     assert json.loads(before)["samples"] == 2000
 
     proc = _start(out, 50_000_000)
-    time.sleep(4.0)  # well inside the run: the nominal solve and first chunks are under way
+    # wait until the run is well under way (CPU time, not wall time: robust on a loaded machine)
+    child = psutil.Process(proc.pid)
+    deadline = time.monotonic() + 120
+    while proc.poll() is None and time.monotonic() < deadline:
+        times = child.cpu_times()
+        if times.user + times.system > 3.0:
+            break
+        time.sleep(0.2)
     assert proc.poll() is None, proc.stderr.read().decode()
     proc.send_signal(sig)
     try:

@@ -47,20 +47,20 @@ def _on_sigterm(signum, frame):  # noqa: ARG001
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
-    try:
-        args = parser.parse_args(argv)
-    except SystemExit as exc:  # argparse: 2 for usage errors, 0 for --help
-        return int(exc.code or 0)
-    if not getattr(args, "command", None):
-        parser.print_help(sys.stderr)
-        return 2
     previous = None
-    try:
+    try:  # first, before the heavy imports, so a SIGTERM at any time ends in a clean exit 143
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
     except ValueError:  # not the main thread (tests in threads): leave SIGTERM alone
         previous = None
     try:
+        parser = build_parser()
+        try:
+            args = parser.parse_args(argv)
+        except SystemExit as exc:  # argparse: 2 for usage errors, 0 for --help
+            return int(exc.code or 0)
+        if not getattr(args, "command", None):
+            parser.print_help(sys.stderr)
+            return 2
         return int(args.execute(args))
     except ConfigError as exc:
         print(f"mcmatch: error: {exc}", file=sys.stderr)
