@@ -13,13 +13,27 @@ import pandas as pd
 
 from mcmatch import __version__
 from mcmatch.analysis.stats import describe
+from mcmatch.analysis.streaming import HISTOGRAM_BINS, STAT_BLOCK, ChunkReducer, Grid, RunAccumulator
 from mcmatch.analysis.yields import passes, yield_block
 from mcmatch.config import Config
-from mcmatch.engine import Study, monte_carlo, nominal_measures, prepare
+from mcmatch.engine import (
+    BLOCK,
+    CHUNK_QUANTUM,
+    Study,
+    nominal_measures,
+    prepare,
+    resolve_jobs,
+    run_chunk,
+    stream_chunks,
+)
+from mcmatch.operating_point import device_operating_points
 from mcmatch.results import to_frame
 
 #: Failed samples whose parameters are listed in the summary, as examples.
 FAILED_EXAMPLES = 5
+
+# streamed moments fold per STAT_BLOCK: every chunk boundary (the pilot's end, multiples of the quantum) must be one
+assert CHUNK_QUANTUM % STAT_BLOCK == 0 and BLOCK % STAT_BLOCK == 0
 
 
 @dataclass
@@ -27,7 +41,8 @@ class RunOptions:
     jobs: int | None = None
     backend: str | None = None
     progress: Callable[[int], None] | None = None
-    keep_samples: int | None = None
+    keep_samples: int | None = None  # rows kept for the table; None: config analysis.keep_samples
+    chunk_size: int | None = None  # samples per chunk (rounded to engine.CHUNK_QUANTUM); None: engine's choice
 
 
 @dataclass
@@ -67,6 +82,59 @@ def measure_summaries(columns: dict[str, np.ndarray], study: Study, nominal: dic
     return out
 
 
+def streamed_yields(stats: RunAccumulator, config: Config, confidence: float = 0.95) -> dict:
+    """:func:`spec_yields` from streamed counts: joint yield and per-spec yields; failed solves fail every spec."""
+    total = int(stats.samples)
+    per_spec = {}
+    for name, limits in config.specs.items():
+        per_spec[name] = {
+            "min": limits.min,
+            "max": limits.max,
+            **yield_block(stats.spec_passed[name], total, confidence),
+        }
+    block = yield_block(stats.joint_passed, total, confidence)
+    block["specs"] = per_spec
+    return block
+
+
+def stream_statistics(
+    study: Study, config: Config, nominal: dict[str, float], options: RunOptions
+) -> tuple[RunAccumulator, dict[str, np.ndarray]]:
+    """Monte Carlo of the study, streamed: statistics over every sample, rows kept for the first `keep` samples only.
+
+    A pilot chunk (the first random block) is solved here first: it sets the quantile histograms' range. Every
+    later chunk is solved and reduced where it runs, then folded here in sample order.
+    """
+    samples = int(config.analysis.samples)
+    keep = int(config.analysis.keep_samples if options.keep_samples is None else options.keep_samples)
+    measures = tuple(study.measures)
+    specs = dict(config.specs)
+    pilot_stop = min(samples, BLOCK)
+    started = time.perf_counter()
+    pilot = run_chunk(study, 0, pilot_stop)
+    per_sample = (time.perf_counter() - started) / max(1, pilot_stop)  # [s]: decides whether a pool pays
+    grids = None
+    if keep < samples:
+        grids = {m: Grid.from_pilot(pilot[m], nominal[m]) for m in measures}
+    reducer = ChunkReducer(measures=measures, specs=specs, keep=keep, grids=grids)
+    stats = RunAccumulator(reducer)
+    stats.add(reducer(pilot))
+    del pilot
+    if options.progress is not None:
+        options.progress(pilot_stop)
+    jobs = resolve_jobs(options.jobs, samples, None if options.backend else per_sample * (samples - pilot_stop))
+    for part in stream_chunks(
+        study, samples, jobs, options.backend, reduce=reducer, start=pilot_stop, chunk_size=options.chunk_size
+    ):
+        stats.add(part)
+        if options.progress is not None:
+            options.progress(part.stop - part.start)
+    kept = stats.kept_columns()
+    if not kept:  # keep = 0: an empty table with the run's columns
+        kept = {k: v[:0] for k, v in run_chunk(study, 0, 1).items()}
+    return stats, kept
+
+
 def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     """Nominal solve and Monte Carlo of the config's main condition, with summary statistics and yield."""
     options = options or RunOptions()
@@ -74,19 +142,32 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     study = prepare(config)
     nominal = nominal_measures(study)
     samples = config.analysis.samples
-    columns = monte_carlo(study, samples, jobs=options.jobs, progress=options.progress, backend=options.backend)
-    converged = np.asarray(columns["converged"], dtype=bool)
+    stats, kept = stream_statistics(study, config, nominal, options)
     summary: dict = {
         "title": config.title,
         "samples": int(samples),
         "seed": int(config.analysis.seed),
-        "failed_solves": int((~converged).sum()),
-        "measures": measure_summaries(columns, study, nominal),
-        "yield": spec_yields(columns, config),
-        "failed_examples": failed_examples(columns),
+        "failed_solves": int(stats.failed),
+        "measures": {
+            name: {"unit": m.unit, "kind": m.kind, **stats.describe(name, nominal[name], kept)}
+            for name, m in study.measures.items()
+        },
+        "yield": streamed_yields(stats, config),
+        "failed_examples": stats.failed_examples,
+        "statistics": {
+            "streamed": True,
+            "chunks": stats.chunks,
+            "stat_block": STAT_BLOCK,
+            "keep_samples": int(stats.reducer.keep),
+            "kept_samples": int(len(kept["sample"])),
+            "quantiles": "exact" if stats.all_kept else "histogram",
+            "histogram_bins": None if stats.all_kept else HISTOGRAM_BINS,
+            "retried_solves": int(stats.retried),
+        },
         "nominal_operating_point": {
             "nodes": {n: float(study.x_nominal[i]) for i, n in enumerate(study.circuit.nodes)},
         },
+        "operating_point": device_operating_points(study.circuit, study.x_nominal),
         "conditions": {"corner": "tt", "temperature": float(config.temperature)},
         "circuit": config.circuit.model_dump(by_alias=True, exclude_none=True),
         "technology": config.technology.model_dump(by_alias=True),
@@ -102,7 +183,12 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
         },
     }
     # analyses (corners, area, contributions, yield extras) work from the summary, never from raw main-run rows
-    # -- hook: summary.update(run_analyses(config, study, summary, options))
-    table = to_frame(columns)
+    from mcmatch.studies import run_analyses  # local: keeps this hook a one-place edit
+
+    summary.update(run_analyses(config, study, summary, options))
+    from mcmatch.studies_extra import run_extra_analyses  # placements, high-sigma yield, bank yield
+
+    summary.update(run_extra_analyses(config, study, summary, options))
+    table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
     return RunResult(summary=summary, table=table, study=study)

@@ -5,8 +5,10 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from contextlib import nullcontext
 from pathlib import Path
 
+from mcmatch.cluster import cluster_session, worker_threads
 from mcmatch.config import load_config
 from mcmatch.results import write_json, write_run_folder, write_samples
 from mcmatch.runner import RunOptions, run_study
@@ -17,10 +19,34 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("config", help="circuit config (TOML)")
     p.add_argument("--samples", type=int, help="Monte Carlo samples (overrides analysis.samples)")
     p.add_argument("--seed", type=int, help="random seed (overrides analysis.seed)")
-    p.add_argument("--jobs", type=int, help="worker processes (default: all cores above 200k samples, else 1)")
+    p.add_argument(
+        "--jobs",
+        type=int,
+        help="worker processes (default: all cores when a pool saves time, judged from the first chunk, else 1)",
+    )
     p.add_argument("--out", help="output folder (default: reports/<config stem>/)")
     p.add_argument("--format", choices=("csv", "parquet"), default="csv", help="samples table format")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument(
+        "--keep-samples",
+        type=int,
+        metavar="K",
+        help="sample rows written and plotted: the first K (overrides analysis.keep_samples, default 100000); "
+        "statistics always cover every sample",
+    )
+    p.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        help="run the chunks on a Dask cluster: tcp://HOST:PORT of a running scheduler, or local[:N] for N loopback "
+        "worker processes (default 2); needs mcmatch[cluster], same numbers as a local run",
+    )
+    p.add_argument(
+        "--cluster-timeout",
+        type=float,
+        default=10.0,
+        metavar="SECONDS",
+        help="time allowed to reach the scheduler and check its workers (default 10)",
+    )
     p.set_defaults(execute=execute)
 
 
@@ -34,7 +60,10 @@ def positive(name: str, value: int | None, minimum: int) -> None:
 def execute(args: argparse.Namespace) -> int:
     positive("samples", args.samples, 1)
     positive("seed", args.seed, 0)
-    config = load_config(args.config).with_analysis(samples=args.samples, seed=args.seed)
+    positive("keep-samples", args.keep_samples, 0)
+    config = load_config(args.config).with_analysis(
+        samples=args.samples, seed=args.seed, keep_samples=args.keep_samples
+    )
     out_dir = Path(args.out) if args.out else Path("reports") / Path(args.config).stem
     bar = None
     if not args.quiet and sys.stderr.isatty():
@@ -42,7 +71,9 @@ def execute(args: argparse.Namespace) -> int:
 
         bar = tqdm(total=config.analysis.samples, unit="sample", unit_scale=True, delay=1.0, file=sys.stderr)
     try:
-        result = run_study(config, RunOptions(jobs=args.jobs, progress=bar.update if bar else None))
+        with cluster_session(args.cluster, args.cluster_timeout) if args.cluster else nullcontext() as backend:
+            jobs = args.jobs if args.jobs is not None or backend is None else worker_threads()
+            result = run_study(config, RunOptions(jobs=jobs, backend=backend, progress=bar.update if bar else None))
     finally:
         if bar is not None:
             bar.close()
@@ -52,6 +83,18 @@ def execute(args: argparse.Namespace) -> int:
         write_json(folder / "summary.json", result.summary)
         write_samples(folder / samples_name, result.table)
         (folder / "config.toml").write_text(config.text, encoding="utf-8")
+        from mcmatch.report import render_report
+
+        try:  # rendered whole, then written: never half a report; a rendering bug must not cost the solved results
+            html = render_report(result.summary, result.table, config.text)
+        except Exception as exc:
+            print(
+                f"mcmatch: warning: report.html not written ({type(exc).__name__}: {exc}); re-render it with "
+                f"'mcmatch report {out_dir}'",
+                file=sys.stderr,
+            )
+        else:
+            (folder / "report.html").write_text(html, encoding="utf-8")
 
     started = time.perf_counter()
     write_run_folder(out_dir, write)

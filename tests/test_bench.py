@@ -1,0 +1,82 @@
+"""`mcmatch bench`: the engine agrees with a per-sample scipy.optimize.root on the same equations; JSON output."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from mcmatch.bench import CIRCUITS, POLARITIES, TOLERANCE, agreement, bench_config, reference_solve
+from mcmatch.cli import main
+from mcmatch.engine import nominal_measures, prepare, run_chunk
+
+
+@pytest.mark.parametrize("kind", POLARITIES)
+@pytest.mark.parametrize("circuit", CIRCUITS)
+def test_engine_agrees_with_scipy_root(circuit, kind):
+    # Reference library (DESIGN.md section 4): scipy.optimize.root on each single sample of the same MNA equations
+    # must agree with the batched engine to 1e-9 relative, unknowns and measures alike.
+    study = prepare(bench_config(circuit, kind, samples=1000))
+    worst, failures, _ = agreement(study, 25)
+    assert failures == 0
+    assert worst <= TOLERANCE
+
+
+@pytest.mark.parametrize("kind", POLARITIES)
+def test_bench_circuits_bias_as_designed(kind):
+    # Razavi, Design of Analog CMOS Integrated Circuits, 2nd ed., 2017, ch. 5: a 1:4 mirror copies four times
+    # the reference within its channel-length modulation error, (1 + lambda Vout) / (1 + lambda Vgs) - 1 (< 4 % with
+    # lambda = 0.04 1/V here); the cascode copies 1:1 far more closely (its drain is shielded from the output).
+    simple = nominal_measures(prepare(bench_config("simple", kind)))
+    cascode = nominal_measures(prepare(bench_config("cascode", kind)))
+    assert 0 < abs(simple["gain_error"]) < 0.04
+    assert abs(cascode["gain_error"]) < abs(simple["gain_error"]) / 10
+    assert simple["r_nb"] > 0 and cascode["r_nc"] > 0
+
+
+def test_reference_solves_the_nominal_point_without_mismatch():
+    # Reference library (DESIGN.md section 4): with no mismatch scipy must stay on the engine's nominal point.
+    study = prepare(bench_config("cascode", "pmos"))
+    p = study.circuit.params
+    x, ok = reference_solve(study, p.vth.copy(), p.beta.copy())
+    assert ok
+    np.testing.assert_allclose(x, study.x_nominal, rtol=1e-10, atol=1e-16)
+
+
+def test_bench_command_prints_one_json_object(capsys):
+    # Project contract (issue 6): the JSON keys of `mcmatch bench --json`; no timing is asserted.
+    assert main(["bench", "--circuit", "simple", "--samples", "20000", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    for key in (
+        "circuit",
+        "samples",
+        "engine_samples_per_s",
+        "reference_samples_per_s",
+        "speedup",
+        "max_rel_diff",
+        "peak_rss_bytes",
+    ):
+        assert key in out
+    assert out["circuit"] == "simple" and out["samples"] == 20000
+    assert out["max_rel_diff"] <= TOLERANCE
+    assert out["speedup"] == pytest.approx(out["engine_samples_per_s"] / out["reference_samples_per_s"])
+    assert out["peak_rss_bytes"] > 0
+
+
+def test_bench_rejects_bad_counts(capsys):
+    # DESIGN.md section 3: invalid input exits 2 with a message naming the key.
+    assert main(["bench", "--samples", "0"]) == 2
+    assert "--samples" in capsys.readouterr().err
+
+
+def test_bank_channels_share_one_reference_solve():
+    # Common practice, no source: the bank's channels hang on one reference node, solved once per sample; each
+    # channel's error is its own device's mismatch, so channel errors are correlated only through the reference.
+    study = prepare(bench_config("bank", "nmos"))
+    cols = run_chunk(study, 0, 4000)
+    assert cols["converged"].all()
+    errors = np.array([cols[f"err_ch{c}"] for c in range(4)])
+    corr = np.corrcoef(errors)
+    off = corr[~np.eye(4, dtype=bool)]
+    assert (off > 0).all() and (off < 0.9).all()
