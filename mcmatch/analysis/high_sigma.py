@@ -191,7 +191,10 @@ def estimate(weights: np.ndarray, failed: np.ndarray, confidence: float = 0.95) 
 
 
 def sigma_level(p: float) -> float | None:
-    """One-sided normal equivalent of a probability: norm.isf(p) [sigma]; None for p = 0 (unbounded)."""
-    if not p > 0:
+    """One-sided normal equivalent of a probability: norm.isf(p) [sigma].
+
+    None for p = 0 (unbounded above) and for p >= 1 (every draw fails: no finite sigma level; JSON holds no -inf).
+    """
+    if not 0 < p < 1:
         return None
-    return float(stats.norm.isf(min(p, 1.0)))
+    return float(stats.norm.isf(p))
