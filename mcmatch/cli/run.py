@@ -28,6 +28,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--format", choices=("csv", "parquet"), default="csv", help="samples table format")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument(
+        "--no-report", action="store_true", help="skip report.html (scripted sweeps); 'mcmatch report DIR' adds it"
+    )
+    p.add_argument(
         "--keep-samples",
         type=int,
         metavar="K",
@@ -83,6 +86,10 @@ def execute(args: argparse.Namespace) -> int:
         write_json(folder / "summary.json", result.summary)
         write_samples(folder / samples_name, result.table)
         (folder / "config.toml").write_text(config.text, encoding="utf-8")
+        if config.technology_text:  # the technology file too: the run folder alone reproduces the run
+            (folder / "technology.toml").write_text(config.technology_text, encoding="utf-8")
+        if args.no_report:
+            return
         from mcmatch.report import render_report
 
         try:  # rendered whole, then written: never half a report; a rendering bug must not cost the solved results
@@ -103,9 +110,17 @@ def execute(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(f"{s['title']}: {s['samples']} samples, {s['failed_solves']} failed solves")
         for name, m in s["measures"].items():
-            print(f"  {name:>16}: nominal {m['nominal']:.6g}  mean {m['mean']:.6g}  std {m['std']:.4g} [{m['unit']}]")
+            print(
+                f"  {name:>16}: nominal {_num(m['nominal'], '.6g')}  mean {_num(m['mean'], '.6g')}  "
+                f"std {_num(m['std'], '.4g')} [{m['unit']}]"
+            )
         print(
-            f"  yield {y['fraction']:.5f} (95 % CI {y['ci95'][0]:.5f} .. {y['ci95'][1]:.5f}), "
+            f"  yield {_num(y['fraction'], '.5f')} (95 % CI {y['ci95'][0]:.5f} .. {y['ci95'][1]:.5f}), "
             f"written to {out_dir} in {time.perf_counter() - started:.1f} s"
         )
     return 0
+
+
+def _num(value: float | None, spec: str) -> str:
+    """A number for the console; 'n/a' where no sample converged."""
+    return "n/a" if value is None else format(value, spec)
