@@ -33,7 +33,7 @@ from mcmatch.circuit import (
 )
 from mcmatch.config import Config, Measure
 from mcmatch.errors import SolveError
-from mcmatch.mismatch import BLOCK, NormalStream, perturbed
+from mcmatch.mismatch import BLOCK, Sampling, normal_source, perturbed
 from mcmatch.solver import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
 from mcmatch.technology import device_parameters
 
@@ -91,10 +91,41 @@ class Study:
     stream: int = 0
     corner: str = "tt"
     temperature: float = 300.15
+    sampling: Sampling = "random"  # how run_chunk draws the mismatch normals (mismatch.normal_source)
 
     @property
     def device_names(self) -> tuple[str, ...]:
         return self.circuit.mosfet_names
+
+    @property
+    def rails(self) -> tuple[float, float]:
+        """The band [V] a node may plausibly take: the nominal node voltages and gnd, widened by
+        RAIL_MARGIN_FRACTION of their span and at least RAIL_MARGIN. An ideal current source can push a node far
+        beyond it (a device out of compliance); such a sample has no physical operating point and is counted as a
+        failed solve, not reported as a current."""
+        return supply_band(self.circuit, self.x_nominal)
+
+
+#: Margin [V] and fraction of the nominal voltage span beyond which a node's voltage is implausible (see Study.rails).
+RAIL_MARGIN = 1.0
+RAIL_MARGIN_FRACTION = 0.5
+
+
+def supply_band(circuit: Circuit, x: np.ndarray) -> tuple[float, float]:
+    """[lo, hi] [V]: the voltages of the nodes held by voltage sources, and gnd, widened by RAIL_MARGIN_FRACTION of
+    their span and at least RAIL_MARGIN."""
+    nodes = [int(n) for n in (*circuit.vsource_plus, *circuit.vsource_minus) if n < circuit.n_nodes]
+    held = [0.0, *(float(x[n]) for n in nodes)]
+    lo, hi = min(held), max(held)
+    margin = max(RAIL_MARGIN, RAIL_MARGIN_FRACTION * (hi - lo))
+    return lo - margin, hi + margin
+
+
+def within_rails(study: Study, node_voltages: np.ndarray) -> np.ndarray:
+    """Per-sample mask: every node voltage in `node_voltages` (S, k) lies inside study.rails."""
+    lo, hi = study.rails
+    v = np.asarray(node_voltages)
+    return ((v >= lo) & (v <= hi)).all(axis=1) if v.size else np.ones(v.shape[0], dtype=bool)
 
 
 def build_circuit(
@@ -143,11 +174,22 @@ def prepare(
 ) -> Study:
     """Compile and solve the nominal point of one condition."""
     circuit = build_circuit(config, corner, temperature, supply)
+    kelvin = config.temperature if temperature is None else temperature
+    where = f"corner {corner}, {kelvin - 273.15:.4g} degC" + (f", {supply[0]} = {supply[1]:.4g} V" if supply else "")
     try:
         x0 = nominal_point(circuit, guess)
     except SolveError as exc:
-        where = f"corner {corner}, T = {circuit.params.ut:.4g} V thermal voltage"
         raise SolveError(f"{exc.message} [{where}]", exc.partial) from None
+    lo, hi = supply_band(circuit, x0)
+    outside = [(n, float(x0[i])) for i, n in enumerate(circuit.nodes) if not lo <= x0[i] <= hi]
+    if outside:
+        node, volts = outside[0]
+        raise SolveError(
+            f"no physical operating point: node '{node}' would sit at {volts:.4g} V, far outside the supply rails "
+            f"({lo:.3g} .. {hi:.3g} V with margin); a current source drives it and no device can carry that current "
+            f"(a device cut off or out of compliance) [{where}]",
+            x0,
+        )
     return Study(
         circuit=circuit,
         measures=dict(config.measures),
@@ -156,6 +198,7 @@ def prepare(
         stream=stream,
         corner=corner,
         temperature=config.temperature if temperature is None else temperature,
+        sampling=config.analysis.sampling,
     )
 
 
@@ -204,7 +247,7 @@ def solve_samples_mna(
         x0 = np.broadcast_to(study.x_nominal, (len(vth), circuit.n_unknowns)).copy()
     result = solve_batch(system, x0, voltage_mask(circuit))
     _, jac = residual_jacobian(circuit, result.x, vth, beta)
-    ok = result.converged & np.isfinite(jac).all(axis=(1, 2))
+    ok = result.converged & np.isfinite(jac).all(axis=(1, 2)) & within_rails(study, result.x[:, : circuit.n_nodes])
     jac = np.where(ok[:, None, None], jac, np.eye(circuit.n_unknowns))
     values = evaluate_measures(circuit, study.measures, result.x, vth, beta, jac)
     out: dict[str, np.ndarray] = {}
@@ -535,7 +578,8 @@ def solve_fast(study: Study, plan: FastPlan, dvth: np.ndarray, dbeta: np.ndarray
     n_samples = dvth.shape[1]
     sol = _fast_newton(study, plan, dvth, dbeta)
     out = fast_measures(study, plan, sol)
-    ok = sol.converged.copy()
+    free = [r for r in (plan.reduced.position[node] for node in range(study.circuit.n_nodes)) if r >= 0]
+    ok = sol.converged & within_rails(study, sol.u[free].T)
     for key in study.measures:
         ok &= np.isfinite(out[key])
     out["converged"] = ok
@@ -724,12 +768,13 @@ def grounded_source_currents(reduced: ReducedCircuit, u: np.ndarray, state, node
 
 def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
     """Draw and solve samples start <= i < stop; columns: sample, measures, converged, iterations, retried, dvth_*,
-    dbeta_*. Drawn and solved FAST_BATCH samples at a time, so the working arrays stay in cache."""
+    dbeta_*. Drawn (pseudo-random or Sobol', as `study.sampling` says) and solved FAST_BATCH samples at a time, so
+    the working arrays stay in cache."""
     tune_allocator()
     params = study.circuit.params
     nd = params.count
     n = max(0, stop - start)
-    draws = NormalStream(study.seed, start, 2 * nd, study.stream)
+    draws = normal_source(study.seed, start, 2 * nd, study.stream, study.sampling)
     dvth, dbeta = np.empty((nd, n)), np.empty((nd, n))
     out: dict[str, np.ndarray] = {"sample": np.arange(start, stop, dtype=np.int64)}
     for lo in range(0, n, FAST_BATCH) if n else [0]:

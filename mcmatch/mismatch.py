@@ -3,13 +3,26 @@
 Sample i always gets the same numbers for a given seed, whatever the chunk size or the number of workers: the stream
 of block b = i // BLOCK is seeded by ``SeedSequence(seed, spawn_key=(stream, b))`` and rows within a block are drawn
 in order (numpy fills a shorter request with a prefix of a longer one from the same generator).
+
+Quasi-Monte Carlo (``sampling = "sobol"``): sample i takes point j = i // R of scrambled Sobol' sequence
+r = i % R (R = :data:`SOBOL_SCRAMBLINGS` independent scramblings, interleaved), mapped to standard normals by the
+normal quantile. Sequence r is scrambled (linear matrix scramble plus digital shift, scipy.stats.qmc.Sobol) from
+``SeedSequence(seed, spawn_key=(stream, SOBOL_KEY + r))``, so again the numbers of sample i depend only on
+(seed, stream, i). The R scramblings are independent randomisations of the same point set: the spread of an estimate
+over them is the randomised-QMC error estimate (Owen, "Scrambling Sobol' and Niederreiter-Xing points",
+J. Complexity 14, 1998; L'Ecuyer and Lemieux, "Recent advances in randomized quasi-Monte Carlo methods", 2002).
 """
 
 from __future__ import annotations
 
+from typing import Literal, Protocol
+
 import numpy as np
 
 from mcmatch.technology import DeviceParameters
+
+#: How the standard normals of the mismatch are drawn: pseudo-random, or scrambled Sobol' points (quasi-Monte Carlo).
+Sampling = Literal["random", "sobol"]
 
 #: Samples per random-stream block. Changing it changes every result: it is part of the reproducibility contract.
 BLOCK = 65536
@@ -25,18 +38,22 @@ def block_generator(seed: int, block: int, stream: int = 0) -> np.random.Generat
     return np.random.Generator(np.random.SFC64(np.random.SeedSequence(seed, spawn_key=(stream, block))))
 
 
-def standard_normals(seed: int, start: int, stop: int, n_dims: int, stream: int = 0) -> np.ndarray:
+def standard_normals(
+    seed: int, start: int, stop: int, n_dims: int, stream: int = 0, sampling: Sampling = "random"
+) -> np.ndarray:
     """Standard normal draws (stop - start, n_dims) for samples start <= i < stop; identical for any split."""
-    return np.ascontiguousarray(standard_normals_t(seed, start, stop, n_dims, stream).T)
+    return np.ascontiguousarray(standard_normals_t(seed, start, stop, n_dims, stream, sampling).T)
 
 
 #: Rows drawn per call into a small scratch buffer: keeps the draws cache-resident and allocation-free.
 DRAW_ROWS = 8192
 
 
-def standard_normals_t(seed: int, start: int, stop: int, n_dims: int, stream: int = 0) -> np.ndarray:
+def standard_normals_t(
+    seed: int, start: int, stop: int, n_dims: int, stream: int = 0, sampling: Sampling = "random"
+) -> np.ndarray:
     """The draws of :func:`standard_normals`, sample axis last: (n_dims, stop - start), each row contiguous."""
-    return NormalStream(seed, start, n_dims, stream).take(max(0, stop - start))
+    return normal_source(seed, start, n_dims, stream, sampling).take(max(0, stop - start))
 
 
 class NormalStream:
@@ -76,6 +93,119 @@ class NormalStream:
             done += rows
             self.position += rows
         return out
+
+
+#: Independent scramblings of the Sobol' sequence, interleaved over the samples: sample i belongs to scrambling i % R.
+#: Part of the reproducibility contract of ``sampling = "sobol"``, like BLOCK.
+SOBOL_SCRAMBLINGS = 8
+#: Bits of the Sobol' points: up to 2**32 points per scrambling on a grid of step 2**-32 (normals within about
+#: +-6.3 sigma after the clip below; a pseudo-random normal goes beyond that about once in 4e9 draws).
+SOBOL_BITS = 32
+#: Offset of the scramblings' spawn keys, far from the random blocks' keys (block numbers stay below it).
+SOBOL_KEY = 1_000_000
+#: The uniforms are clipped into [U_EDGE, 1 - U_EDGE] before the normal quantile: half a grid step from 0 and 1.
+U_EDGE = 0.5 * 2.0**-SOBOL_BITS
+
+
+class NormalSource(Protocol):
+    """Consecutive standard normals from a sample index on: ``take(n)`` -> (n_dims, n), the sample axis last."""
+
+    position: int
+
+    def take(self, n: int) -> np.ndarray: ...
+
+
+def sobol_engine(seed: int, replicate: int, n_dims: int, stream: int = 0):
+    """Scrambled Sobol' generator of scrambling `replicate` (scipy.stats.qmc.Sobol, linear matrix scramble and
+    digital shift), its randomisation seeded by ``SeedSequence(seed, spawn_key=(stream, SOBOL_KEY + replicate))``."""
+    from scipy.stats import qmc
+
+    bits = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(stream, SOBOL_KEY + replicate))))
+    return qmc.Sobol(n_dims, scramble=True, bits=SOBOL_BITS, rng=bits)
+
+
+def sobol_jump(engine, index: int):
+    """Position a fresh Sobol' `engine` so its next point is point `index` of its sequence; returns the engine.
+
+    scipy draws the points in Gray-code order: point k is the digital shift XOR the direction numbers of the set
+    bits of gray(k) = k ^ (k >> 1). Setting that state directly costs O(bits * d), where
+    ``Sobol.fast_forward`` steps through every skipped point (a few seconds per chunk deep into a 1e9-sample run).
+    Falls back to fast_forward if scipy's internals differ from those this relies on.
+    """
+    if index <= 0:
+        return engine
+    sv, shift = getattr(engine, "_sv", None), getattr(engine, "_shift", None)
+    quasi = getattr(engine, "_quasi", None)
+    if engine.num_generated != 0 or sv is None or shift is None or quasi is None or sv.ndim != 2:
+        return engine.fast_forward(index)
+    # after k points the engine holds point k - 1 and counts k (see scipy's Sobol._random)
+    gray = (index - 1) ^ ((index - 1) >> 1)
+    state = shift.copy()
+    for bit in range(sv.shape[1]):
+        if (gray >> bit) & 1:
+            state ^= sv[:, bit]
+    quasi[:] = state
+    engine.num_generated = index
+    return engine
+
+
+class SobolStream:
+    """Scrambled Sobol' points mapped to standard normals, sample by sample from `start` on: ``take(n)`` gives the
+    next n samples as (n_dims, n), like :class:`NormalStream`.
+
+    Sample i is point i // R of scrambling i % R, R = `scramblings`; each scrambling's generator is kept between
+    calls and started afresh (jumped to the wanted point) only where a call does not continue where it stopped.
+    """
+
+    def __init__(
+        self, seed: int, start: int, n_dims: int, stream: int = 0, scramblings: int = SOBOL_SCRAMBLINGS
+    ) -> None:
+        self.seed, self.n_dims, self.stream, self.scramblings = seed, n_dims, stream, scramblings
+        self.position = start  # next sample to hand out
+        self._engines: dict[int, object] = {}
+        self._next: dict[int, int] = {}  # next point index of each scrambling's engine
+
+    def _points(self, replicate: int, first: int, count: int) -> np.ndarray:
+        """Points first .. first + count - 1 of scrambling `replicate`, uniforms (count, n_dims)."""
+        engine = self._engines.get(replicate)
+        if engine is None or self._next[replicate] != first:
+            engine = sobol_jump(sobol_engine(self.seed, replicate, self.n_dims, self.stream), first)
+            self._engines[replicate] = engine
+        if engine.num_generated == 0 and count & (count - 1):
+            # scipy warns about balance when a fresh sequence is asked for a non-power of 2 (sample counts are the
+            # user's choice and the summary says so): the first point alone, then the rest, are the same points
+            u = np.concatenate([engine.random(1), engine.random(count - 1)])
+        else:
+            u = engine.random(count)
+        self._next[replicate] = first + count
+        return u
+
+    def take(self, n: int) -> np.ndarray:
+        from scipy.special import ndtri
+
+        out = np.empty((self.n_dims, n))
+        pos, rr = self.position, self.scramblings
+        for r in range(rr):
+            first = pos + (r - pos) % rr  # first sample of scrambling r at or after pos
+            if first >= pos + n:
+                continue
+            count = (pos + n - 1 - first) // rr + 1
+            u = self._points(r, first // rr, count)
+            np.clip(u, U_EDGE, 1.0 - U_EDGE, out=u)
+            out[:, first - pos :: rr] = ndtri(u).T
+        self.position += n
+        return out
+
+
+def normal_source(seed: int, start: int, n_dims: int, stream: int = 0, sampling: Sampling = "random") -> NormalSource:
+    """The standard normals of samples start, start + 1, ... for the chosen sampling: block-seeded pseudo-random
+    draws (:class:`NormalStream`) or scrambled Sobol' points (:class:`SobolStream`); both depend only on
+    (seed, stream, sample index)."""
+    if sampling == "random":
+        return NormalStream(seed, start, n_dims, stream)
+    if sampling == "sobol":
+        return SobolStream(seed, start, n_dims, stream)
+    raise ValueError(f"unknown sampling {sampling!r}; expected 'random' or 'sobol'")
 
 
 def mismatch_from_normals(params: DeviceParameters, z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -424,7 +424,7 @@ def header_items(summary: dict) -> list[tuple[str, str, str]]:
     if cond:
         items.append(("Condition", f"{cond.get('corner', 'tt')}, {celsius(cond.get('temperature'))}", ""))
     if run.get("sampling") or summary.get("sampling"):
-        items.append(("Sampling", str(run.get("sampling") or summary.get("sampling")), ""))
+        items.append(("Sampling", sampling_text(run.get("sampling") or summary.get("sampling")), ""))
     items.append(("Config", str(run.get("config", "\u2013")), "mono"))
     items.append(("Config digest (sha256)", str(run.get("config_digest", "\u2013")), "mono digest"))
     return items
@@ -720,6 +720,58 @@ def measures_table(summary: dict) -> dict | None:
         rows,
         "Per-measure statistics over the converged samples (quantiles at the normal \u00b13 sigma points)",
     )
+
+
+def sampling_text(sampling: object) -> str:
+    """One line for the header: "Sobol' QMC, 8 scramblings x 2,048 points" or "pseudo-random"."""
+    if not isinstance(sampling, Mapping):
+        return str(sampling)
+    if sampling.get("method") == "sobol":
+        points = sampling.get("points_per_scrambling")
+        each = f" \u00d7 {points:,} points" if isinstance(points, int) else ""
+        return f"Sobol' QMC, {sampling.get('scramblings', '?')} scramblings{each}"
+    return "pseudo-random" if sampling.get("method") == "random" else str(sampling.get("method", "\u2013"))
+
+
+def sampling_section(summary: dict) -> dict | None:
+    """Standard errors of each sigma and of the joint yield (summary["sampling"]), beside plain Monte Carlo's."""
+    sampling = summary.get("sampling")
+    if not isinstance(sampling, Mapping) or not isinstance(sampling.get("measures"), Mapping):
+        return None
+    sobol = sampling.get("method") == "sobol"
+    measures = summary.get("measures") or {}
+    rows = []
+    for name, m in sampling["measures"].items():
+        if not isinstance(m, Mapping):
+            continue
+        unit = (measures.get(name) or {}).get("unit", "")
+        cells = [cell(f"sigma of {name}", "name"), num(eng(m.get("std"), unit)), num(eng(m.get("std_error"), unit))]
+        cells.append(num(eng(m.get("mc_std_error"), unit)))
+        if sobol:
+            cells.append(num(plain(m.get("sample_ratio"), 3)))
+        rows.append(row(cells))
+    y = sampling.get("yield")
+    if isinstance(y, Mapping) and summary.get("specs"):
+        cells = [cell("joint yield", "name"), num(yield_text(y.get("fraction")))]
+        cells += [num(percent(y.get("std_error"), 3)), num(percent(y.get("mc_std_error"), 3))]
+        if sobol:
+            cells.append(num(plain(y.get("sample_ratio"), 3)))
+        rows.append(row(cells))
+    if not rows:
+        return None
+    columns: list = ["estimate", ("value", "num"), ("standard error", "num"), ("plain MC s.e., same N", "num")]
+    if sobol:
+        columns.append(("sample ratio", "num"))
+    notes = [f"Error estimate: {sampling.get('error_estimate') or 'not given'}."]
+    if sobol:
+        notes.append(
+            "Sample ratio: plain Monte Carlo samples needed for the same standard error, per sample of this run "
+            "((plain MC s.e. / standard error)\u00b2). With few scramblings the standard error is itself uncertain "
+            f"(about \u00b1{100 / math.sqrt(2 * max(1, int(sampling.get('scramblings') or 8) - 1)):.0f} %)."
+        )
+    notes += [str(w) for w in sampling.get("warnings") or []]
+    caption = "Sampling error of the estimates (" + sampling_text(sampling) + ")"
+    return {"table": table(columns, rows, caption), "notes": notes}
 
 
 def yield_section(summary: dict) -> dict | None:
@@ -1445,6 +1497,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "operating_point": operating_point_tables(summary.get("operating_point")),
         "nodes": nodes_table(summary.get("nominal_operating_point")),
         "measures": measures_table(summary),
+        "sampling": sampling_section(summary),
         "distributions": dist,
         "yields": yield_section(summary),
         "corners": corners,

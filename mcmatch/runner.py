@@ -13,7 +13,14 @@ import pandas as pd
 
 from mcmatch import __version__
 from mcmatch.analysis.stats import describe
-from mcmatch.analysis.streaming import HISTOGRAM_BINS, STAT_BLOCK, ChunkReducer, Grid, RunAccumulator
+from mcmatch.analysis.streaming import (
+    HISTOGRAM_BINS,
+    STAT_BLOCK,
+    ChunkReducer,
+    Grid,
+    RunAccumulator,
+    sampling_summary,
+)
 from mcmatch.analysis.yields import passes, yield_block
 from mcmatch.config import Config
 from mcmatch.engine import (
@@ -26,6 +33,7 @@ from mcmatch.engine import (
     run_chunk,
     stream_chunks,
 )
+from mcmatch.mismatch import SOBOL_SCRAMBLINGS
 from mcmatch.operating_point import device_operating_points
 from mcmatch.results import to_frame
 
@@ -116,7 +124,9 @@ def stream_statistics(
     grids = None
     if keep < samples:
         grids = {m: Grid.from_pilot(pilot[m], nominal[m]) for m in measures}
-    reducer = ChunkReducer(measures=measures, specs=specs, keep=keep, grids=grids)
+    # Sobol' sampling: moments and passes per scrambling (samples i % R), for the randomised-QMC error estimate
+    replicates = SOBOL_SCRAMBLINGS if study.sampling == "sobol" else 1
+    reducer = ChunkReducer(measures=measures, specs=specs, keep=keep, grids=grids, replicates=replicates)
     stats = RunAccumulator(reducer)
     stats.add(reducer(pilot))
     del pilot
@@ -153,6 +163,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
             for name, m in study.measures.items()
         },
         "yield": streamed_yields(stats, config),
+        "sampling": sampling_summary(stats, config.analysis.sampling),
         "failed_examples": stats.failed_examples,
         "statistics": {
             "streamed": True,

@@ -78,7 +78,7 @@ def _placement_mc(
     parts = []
     for start in range(0, samples, BLOCK):
         stop = min(samples, start + BLOCK)
-        z = standard_normals(study.seed, start, stop, 2 * params.count, study.stream)
+        z = standard_normals(study.seed, start, stop, 2 * params.count, study.stream, study.sampling)
         dvth, dbeta = mismatch_from_normals(params, z)
         g = standard_normals(study.seed, start, stop, 4, PLACEMENT_STREAM)
         extra_vth, extra_beta = distance_terms(centroids, placed, g, s_vt, s_beta)

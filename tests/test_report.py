@@ -295,7 +295,13 @@ def test_report_command_rerenders_without_solving(demo_run, monkeypatch, tmp_pat
     assert main(["report", str(run), "--quiet"]) == 0
     # same summary, same samples (CSV round-trips floats exactly), same seed-free figures: the same bytes
     assert (run / "report.html").read_bytes() == original
-    assert sorted(p.name for p in run.iterdir()) == ["config.toml", "report.html", "samples.csv", "summary.json"]
+    assert sorted(p.name for p in run.iterdir()) == [
+        "config.toml",
+        "report.html",
+        "samples.csv",
+        "summary.json",
+        "technology.toml",
+    ]
 
 
 def test_report_write_is_atomic(demo_run, monkeypatch, tmp_path):
@@ -310,7 +316,13 @@ def test_report_write_is_atomic(demo_run, monkeypatch, tmp_path):
     with pytest.raises(RuntimeError):
         write_report(run)
     assert (run / "report.html").read_bytes() == before  # untouched, no temporary file left
-    assert sorted(p.name for p in run.iterdir()) == ["config.toml", "report.html", "samples.csv", "summary.json"]
+    assert sorted(p.name for p in run.iterdir()) == [
+        "config.toml",
+        "report.html",
+        "samples.csv",
+        "summary.json",
+        "technology.toml",
+    ]
 
 
 def test_report_command_rejects_a_folder_that_is_not_a_run(tmp_path, capsys):

@@ -12,6 +12,9 @@ folds the partials in sample order (:class:`RunAccumulator`). What is kept:
   exactly (few: a fresh sample falls beyond the extremes of an n-sample pilot with probability 2/(n + 1)). If those
   ever exceed :data:`OVERFLOW_CAP`, the bins are merged pairwise (exactly: the grid doubles in place) until they fit.
   A histogram quantile lies within one bin width of the exact one; the summary names the method and the bin width.
+- replicate moments and joint passes, per group of samples i % R (R = ``ChunkReducer.replicates``): with Sobol'
+  sampling each group is one independent scrambling, and the spread of the groups' estimates is the randomised-QMC
+  error estimate (:func:`sampling_summary`). Moments per (block, group), folded in block order: chunking-independent.
 """
 
 from __future__ import annotations
@@ -120,6 +123,72 @@ def fold_blocks(total: Moments, blocks: tuple[np.ndarray, ...]) -> Moments:
         if c:
             total = total.merge(Moments(int(c), mean, m2, lo, hi))
     return total
+
+
+def replicate_groups(start: int, n: int, starts: np.ndarray, replicates: int) -> np.ndarray:
+    """Group of each of n samples from `start` on: block * replicates + (sample index % replicates), blocks as
+    given by `starts` (:func:`block_starts`)."""
+    block = np.repeat(np.arange(len(starts), dtype=np.int64), np.diff(np.append(starts, n)))
+    return block * replicates + (start + np.arange(n, dtype=np.int64)) % replicates
+
+
+def replicate_block_moments(
+    values: np.ndarray, start: int, starts: np.ndarray, replicates: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(count, mean, m2) of the finite values of samples start.. per block (offsets `starts`) and group
+    i % replicates, each (n_blocks, replicates).
+
+    A whole block of finite values (the usual case) is reduced as a (rows, replicates) array; any other block
+    through :func:`replicate_moments`. The choice depends on the block alone, so the numbers do not depend on the
+    chunk it came in."""
+    v = np.asarray(values, dtype=float)
+    n_blocks, rr = len(starts), int(replicates)
+    lengths = np.diff(np.append(starts, len(v)))
+    full = 0  # leading whole blocks of STAT_BLOCK samples starting at a multiple of rr
+    if start % rr == 0 and STAT_BLOCK % rr == 0:
+        while full < n_blocks and lengths[full] == STAT_BLOCK:
+            full += 1
+    counts = np.zeros((n_blocks, rr), dtype=np.int64)
+    means = np.zeros((n_blocks, rr))
+    m2 = np.zeros((n_blocks, rr))
+    slow = list(range(full, n_blocks))
+    if full:
+        rows = STAT_BLOCK // rr
+        cube = v[: full * STAT_BLOCK].reshape(full, rows, rr)
+        with np.errstate(invalid="ignore", over="ignore"):
+            means[:full] = cube.sum(axis=1) * (1.0 / rows)
+            dev = cube - means[:full, None, :]
+            m2[:full] = np.einsum("brk,brk->bk", dev, dev)
+        counts[:full] = rows
+        # a block holding a failed sample (NaN) shows in its m2; it goes the masked way
+        slow = [int(b) for b in np.flatnonzero(~np.isfinite(m2[:full]).all(axis=1))] + slow
+    for b in slow:
+        lo = int(starts[b])
+        part = v[lo : lo + int(lengths[b])]
+        groups = (start + lo + np.arange(part.size, dtype=np.int64)) % rr
+        counts[b], means[b], m2[b] = replicate_moments(part, groups, rr)
+    return counts, means, m2
+
+
+def replicate_moments(
+    values: np.ndarray, groups: np.ndarray, n_groups: int, all_finite: bool = False
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(count, mean, m2) of the finite values per group (:func:`replicate_groups`), each (n_groups,)."""
+    v = np.asarray(values, dtype=float)
+    finite = None if all_finite else np.isfinite(v)
+    if finite is not None and finite.all():
+        finite = None
+    if finite is None:
+        counts = np.bincount(groups, minlength=n_groups).astype(np.int64)
+        sums = np.bincount(groups, weights=v, minlength=n_groups)
+    else:
+        counts = np.bincount(groups[finite], minlength=n_groups).astype(np.int64)
+        sums = np.bincount(groups, weights=np.where(finite, v, 0.0), minlength=n_groups)
+    means = sums / np.maximum(counts, 1)
+    dev = v - means[groups]
+    if finite is not None:
+        dev = np.where(finite, dev, 0.0)
+    return counts, means, np.bincount(groups, weights=dev * dev, minlength=n_groups)
 
 
 # --------------------------------------------------------------------------------------------- histogram
@@ -293,6 +362,10 @@ class ChunkPartial:
     joint_passed: int
     failed_examples: list[dict]
     kept: dict[str, np.ndarray] | None
+    # per (block, group i % replicates), each (n_blocks, replicates): (count, mean, m2) of each measure
+    replicate_moments: dict[str, tuple[np.ndarray, ...]] = field(default_factory=dict)
+    replicate_passed: np.ndarray | None = None  # joint passes per group (replicates,)
+    replicate_total: np.ndarray | None = None  # samples per group (replicates,)
 
 
 @dataclass(frozen=True)
@@ -300,13 +373,15 @@ class ChunkReducer:
     """Picklable: turns one chunk's columns (engine.run_chunk) into a ChunkPartial, in the worker that solved it.
 
     measures: measure names; specs: {measure: Limits}; keep: rows with sample index < keep are returned whole;
-    grids: {measure: Grid} for the quantile histograms (None: no histogram, quantiles come from kept rows).
+    grids: {measure: Grid} for the quantile histograms (None: no histogram, quantiles come from kept rows);
+    replicates: groups i % replicates with their own moments and joint passes (1: none).
     """
 
     measures: tuple[str, ...]
     specs: dict[str, Limits]
     keep: int
     grids: dict[str, Grid] | None = None
+    replicates: int = 1
 
     def __call__(self, columns: dict[str, np.ndarray]) -> ChunkPartial:
         sample = columns["sample"]
@@ -325,6 +400,16 @@ class ChunkReducer:
         examples = [
             {k: int(columns[k][i]) if k == "sample" else float(columns[k][i]) for k in keys} for i in failed_rows
         ]
+        rep_moments: dict[str, tuple[np.ndarray, ...]] = {}
+        rep_passed = rep_total = None
+        rr = int(self.replicates)
+        if rr > 1:
+            for m in self.measures:
+                rep_moments[m] = replicate_block_moments(columns[m], start, starts, rr)
+            first = start + (np.arange(rr) - start) % rr  # first sample of each group in the chunk
+            rep_total = np.maximum(0, (stop - 1 - first) // rr + 1).astype(np.int64)
+            failing = start + np.flatnonzero(~joint)
+            rep_passed = rep_total - np.bincount(failing % rr, minlength=rr).astype(np.int64)
         kept = None
         if start < self.keep:
             n = min(stop, self.keep) - start
@@ -340,6 +425,9 @@ class ChunkReducer:
             joint_passed=int(joint.sum()),
             failed_examples=examples,
             kept=kept,
+            replicate_moments=rep_moments,
+            replicate_passed=rep_passed,
+            replicate_total=rep_total,
         )
 
 
@@ -358,6 +446,10 @@ class RunAccumulator:
         self.joint_passed = 0
         self.failed_examples: list[dict] = []
         self.kept: list[dict[str, np.ndarray]] = []
+        rr = max(1, int(reducer.replicates))
+        self.replicate_moments = {m: [Moments() for _ in range(rr)] for m in reducer.measures} if rr > 1 else {}
+        self.replicate_passed = np.zeros(rr, dtype=np.int64)
+        self.replicate_total = np.zeros(rr, dtype=np.int64)
 
     def add(self, part: ChunkPartial) -> None:
         if part.start != self.samples:
@@ -378,6 +470,15 @@ class RunAccumulator:
             self.failed_examples.extend(part.failed_examples[:room])
         if part.kept is not None:
             self.kept.append(part.kept)
+        for m, (counts, means, m2s) in part.replicate_moments.items():
+            groups = self.replicate_moments[m]
+            for row in zip(counts.tolist(), means.tolist(), m2s.tolist(), strict=True):  # blocks in order
+                for r, (c, mean, m2) in enumerate(zip(*row, strict=True)):
+                    if c:
+                        groups[r] = groups[r].merge(Moments(int(c), mean, m2))
+        if part.replicate_passed is not None:
+            self.replicate_passed += part.replicate_passed
+            self.replicate_total += part.replicate_total
 
     def kept_columns(self) -> dict[str, np.ndarray]:
         """The kept rows (the first `keep` samples), concatenated."""
@@ -411,3 +512,103 @@ class RunAccumulator:
             out["quantiles"] = {quantile_key(q): x for q, x in zip(QUANTILES, qs, strict=True)}
             out.update(quantile_method="histogram", quantile_bin_width=h.bin_width)
         return out
+
+
+# --------------------------------------------------------------------------------------------- sampling error
+def spread_error(estimates: list[float]) -> float | None:
+    """Standard error of the average of R independent replicate estimates: their sample std (ddof = 1) / sqrt(R)."""
+    values = [e for e in estimates if e is not None and math.isfinite(e)]
+    if len(values) < 2 or len(values) < len(estimates):
+        return None
+    return float(np.std(values, ddof=1) / math.sqrt(len(values)))
+
+
+def _ratio(plain: float | None, error: float | None) -> float | None:
+    """(plain / error)^2: plain Monte Carlo samples needed per sample for the same standard error."""
+    if plain is None or error is None or not error > 0:
+        return None
+    return float((plain / error) ** 2)
+
+
+def sampling_summary(stats: RunAccumulator, method: str) -> dict:
+    """summary["sampling"]: how the mismatch was drawn, and the standard errors of each measure's sigma and mean and
+    of the joint yield.
+
+    For "sobol" the standard error is the spread over the R independent scramblings (groups i % R) divided by
+    sqrt(R) (randomised QMC; Owen, J. Complexity 1998; L'Ecuyer and Lemieux 2002). For "random" it is the plain
+    Monte Carlo formula: sigma / sqrt(2(N - 1)) for sigma (normal approximation), sigma / sqrt(N) for the mean,
+    sqrt(p(1 - p) / N) for the yield. Both give the formulas as `mc_*` so a designer can compare at equal N;
+    `sample_ratio` = (mc_std_error / std_error)^2 is how many plain Monte Carlo samples one QMC sample is worth.
+    """
+    sobol = method == "sobol"
+    rr = max(1, int(stats.reducer.replicates)) if sobol else 1
+    totals = stats.replicate_total.tolist() if rr > 1 else [stats.samples]
+    points = min(totals) if totals else 0
+    warnings: list[str] = []
+    if sobol and rr > 1:
+        if len(set(totals)) > 1:
+            warnings.append(
+                f"samples ({stats.samples}) is not a multiple of the {rr} scramblings: they hold {min(totals)} to "
+                f"{max(totals)} points"
+            )
+        if points & (points - 1):
+            up = 1 << int(points).bit_length()
+            warnings.append(
+                f"{points} points per scrambling is not a power of 2: Sobol' points are balanced only at powers of "
+                f"2, so the error is larger than it could be (samples = {rr * up} gives {up} per scrambling)"
+            )
+    measures: dict = {}
+    for name in stats.reducer.measures:
+        mo = stats.moments[name]
+        std = mo.std
+        mc_std = std / math.sqrt(2.0 * (mo.count - 1)) if std is not None and mo.count > 1 else None
+        mc_mean = std / math.sqrt(mo.count) if std is not None and mo.count > 0 else None
+        groups = stats.replicate_moments.get(name, []) if sobol else []
+        stds = [g.std if g.count > 1 else None for g in groups]
+        std_error = spread_error(stds) if sobol else mc_std
+        mean_error = spread_error([g.mean if g.count else None for g in groups]) if sobol else mc_mean
+        measures[name] = {
+            "std": std,
+            "std_error": std_error,
+            "relative_std_error": std_error / std if std_error is not None and std else None,
+            "mean": mo.mean if mo.count else None,
+            "mean_error": mean_error,
+            "mc_std_error": mc_std,
+            "mc_mean_error": mc_mean,
+            "sample_ratio": _ratio(mc_std, std_error) if sobol else None,
+            "replicate_std": stds,
+        }
+    total = int(stats.samples)
+    fraction = stats.joint_passed / total if total else None
+    mc_yield = math.sqrt(fraction * (1.0 - fraction) / total) if fraction is not None else None
+    fractions: list = []
+    if sobol and rr > 1:
+        pairs = zip(stats.replicate_passed.tolist(), stats.replicate_total.tolist(), strict=True)
+        fractions = [p / t if t else None for p, t in pairs]
+    yield_error = spread_error(fractions) if sobol else mc_yield
+    if sobol and yield_error == 0.0:
+        warnings.append(
+            f"every scrambling gave the same yield fraction ({fraction:.6g}): their spread is 0 and bounds nothing; "
+            "use the Clopper-Pearson interval"
+        )
+    return {
+        "method": method,
+        "scramblings": rr if sobol else None,
+        "points_per_scrambling": points if sobol else None,
+        "balanced": (len(set(totals)) == 1 and points > 0 and points & (points - 1) == 0) if sobol else None,
+        "error_estimate": (
+            f"spread over {rr} independent scramblings / sqrt({rr}) (randomised quasi-Monte Carlo)"
+            if sobol
+            else "plain Monte Carlo: sigma/sqrt(2(N-1)) for sigma, sigma/sqrt(N) for the mean, sqrt(p(1-p)/N) for "
+            "the yield"
+        ),
+        "measures": measures,
+        "yield": {
+            "fraction": fraction,
+            "std_error": yield_error,
+            "mc_std_error": mc_yield,
+            "sample_ratio": _ratio(mc_yield, yield_error) if sobol else None,
+            "replicate_fraction": fractions,
+        },
+        "warnings": warnings,
+    }

@@ -48,6 +48,7 @@ def _on_sigterm(signum, frame):  # noqa: ARG001
 
 def main(argv: list[str] | None = None) -> int:
     previous = None
+    args = None
     try:  # first, before the heavy imports, so a SIGTERM at any time ends in a clean exit 143
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
     except ValueError:  # not the main thread (tests in threads): leave SIGTERM alone
@@ -65,8 +66,10 @@ def main(argv: list[str] | None = None) -> int:
     except ConfigError as exc:
         print(f"mcmatch: error: {exc}", file=sys.stderr)
         return 2
-    except SolveError as exc:
-        print(f"mcmatch: error: {exc.message}", file=sys.stderr)
+    except SolveError as exc:  # the circuit cannot be biased: an input problem, named with its config file
+        config = getattr(args, "config", None)
+        where = f"{config}: key 'circuit': " if config else ""
+        print(f"mcmatch: error: {where}{exc.message}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("mcmatch: interrupted; nothing was written", file=sys.stderr)
