@@ -2,7 +2,8 @@
 
 Each input either runs or exits with status 2 and a message naming the file and the key; never a traceback.
 Profiles (common practice, no source): the default "ci" profile is fast; the long profile runs at least 10,000
-examples:  MCMATCH_FUZZ=long python -m pytest tests/test_fuzz.py -q -p no:cacheprovider
+mutated configs (spread over the bundled configs) and 10,000 random documents:
+    MCMATCH_FUZZ=long python -m pytest tests/test_fuzz.py -q -p no:cacheprovider
 """
 
 from __future__ import annotations
@@ -23,12 +24,14 @@ from mcmatch.errors import ConfigError
 ROOT = Path(__file__).resolve().parents[1]
 CONFIGS = sorted(p for p in (ROOT / "configs").glob("*.toml"))
 LONG = os.environ.get("MCMATCH_FUZZ") == "long"
+#: Long profile: at least this many mutated configs in all (spread over the configs), and as many random documents.
 EXAMPLES = int(os.environ.get("MCMATCH_FUZZ_EXAMPLES", "10000"))
+PER_CONFIG = -(-EXAMPLES // max(1, len(CONFIGS)))
 
 settings.register_profile(
     "fuzz-ci", max_examples=8, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True
 )
-settings.register_profile("fuzz-long", max_examples=EXAMPLES, deadline=None, suppress_health_check=list(HealthCheck))
+settings.register_profile("fuzz-long", max_examples=PER_CONFIG, deadline=None, suppress_health_check=list(HealthCheck))
 PROFILE = "fuzz-long" if LONG else "fuzz-ci"
 
 ODD_STRINGS = [
