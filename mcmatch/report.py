@@ -1198,6 +1198,21 @@ def _mul(value: object, factor: float) -> float | None:
     return None if v is None else v * factor
 
 
+def placement_drawing(summary: dict) -> dict | None:
+    """The unit-cell drawing of every placement candidate, as an embedded SVG (None without placements)."""
+    placements = summary.get("placements")
+    if not isinstance(placements, list) or not placements:
+        return None
+    from mcmatch import plots
+    from mcmatch.plots_placement import placement_figure
+
+    try:
+        figure = placement_figure(placements)
+    except (KeyError, TypeError, ValueError):  # a summary from another version: the table still stands
+        return None
+    return {"uri": plots.data_uri(figure), "alt": "unit-cell drawing of every placement candidate", "cls": "fig-wide"}
+
+
 def placements_table(summary: dict, key_measures: list[str]) -> dict | None:
     placements = summary.get("placements")
     if not isinstance(placements, list) or not placements:
@@ -1504,6 +1519,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "area": area,
         "contributions": contrib,
         "placements": placements_table(summary, keys),
+        "placement_drawing": placement_drawing(summary),
         "high_sigma": high_sigma_table(summary),
         "bank": bank_table(summary),
         "failed": failed_section(summary),
