@@ -57,16 +57,16 @@ class PolarityParameters(Frozen):
     """Process parameters of one polarity (magnitudes for pmos), SI units."""
 
     model: Literal["square-law", "ekv"] = "square-law"
-    kprime: Q("A/V^2") = Field(gt=0)
-    vth0: Q("V")
-    lambda_: Q("1/V") | None = Field(default=None, alias="lambda", ge=0)
-    lambda_l: Q("m/V") | None = Field(default=None, ge=0)
-    gamma: Q("V^0.5") = Field(default=0.0, ge=0)
-    phi: Q("V") = Field(default=0.8, gt=0)
+    kprime: Q("A/V^2") = Field(gt=0, le=1.0)
+    vth0: Q("V") = Field(ge=-100, le=100)
+    lambda_: Q("1/V") | None = Field(default=None, alias="lambda", ge=0, le=100)
+    lambda_l: Q("m/V") | None = Field(default=None, ge=0, le=1e-3)
+    gamma: Q("V^0.5") = Field(default=0.0, ge=0, le=100)
+    phi: Q("V") = Field(default=0.8, gt=0, le=100)
     slope: Number = Field(default=1.3, ge=1.0, le=5.0)
-    a_vt: Q("V*m") = Field(default=0.0, ge=0)
-    a_beta: Q("m") = Field(default=0.0, ge=0)
-    vth_tempco: Q("V/K") = 0.0
+    a_vt: Q("V*m") = Field(default=0.0, ge=0, le=1e-6)
+    a_beta: Q("m") = Field(default=0.0, ge=0, le=1e-4)
+    vth_tempco: Q("V/K") = Field(default=0.0, ge=-1, le=1)
     mobility_exponent: Number = Field(default=-1.5, ge=-5, le=5)
 
     @model_validator(mode="after")
@@ -85,7 +85,7 @@ class PolarityParameters(Frozen):
 class CornerShift(Frozen):
     """A global process shift of one polarity: threshold shift [V] and k' scale factor [1]."""
 
-    vth_shift: Q("V") = 0.0
+    vth_shift: Q("V") = Field(default=0.0, ge=-10, le=10)
     kprime_scale: Number = Field(default=1.0, gt=0, le=10)
 
 
@@ -133,8 +133,8 @@ class Mosfet(Frozen):
     gate: Name
     source: Name
     bulk: Name | None = None
-    w: Q("m") = Field(gt=0)
-    l: Q("m") = Field(gt=0)  # noqa: E741 - the trade's name
+    w: Q("m") = Field(gt=0, le=0.1)
+    l: Q("m") = Field(gt=0, le=0.1)  # noqa: E741 - the trade's name
     m: int = Field(default=1, ge=1, le=1_000_000)
 
     @property
@@ -154,21 +154,21 @@ class CurrentSource(Frozen):
     name: Name
     from_: Name = Field(alias="from")
     to: Name
-    value: Q("A")
+    value: Q("A") = Field(ge=-100, le=100)
 
 
 class VoltageSource(Frozen):
     name: Name
     plus: Name
     minus: Name
-    value: Q("V")
+    value: Q("V") = Field(ge=-1e4, le=1e4)
 
 
 class Resistor(Frozen):
     name: Name
     a: Name
     b: Name
-    value: Q("ohm") = Field(gt=0)
+    value: Q("ohm") = Field(ge=1e-6, le=1e18)
 
 
 class Netlist(Frozen):
@@ -227,8 +227,8 @@ class Measure(Frozen):
             raise ValueError("a measure needs exactly one of 'current', 'voltage', 'ratio', 'resistance'")
         if self.ideal is not None and self.ratio is None:
             raise ValueError("'ideal' belongs to a ratio measure")
-        if self.ideal is not None and self.ideal == 0:
-            raise ValueError("'ideal' must be non-zero")
+        if self.ideal is not None and not 1e-9 <= abs(self.ideal) <= 1e9:
+            raise ValueError("'ideal' must be a ratio between 1e-9 and 1e9 in magnitude")
         return self
 
     @property
@@ -281,8 +281,11 @@ class CornerStudy(Frozen):
         if self.supply is not None and self.supply_scale is not None:
             raise ValueError("give 'supply' (absolute volts) or 'supply_scale' (factors), not both")
         for t in self.temperature or []:
-            if t <= 0:
-                raise ValueError("temperatures must be above absolute zero")
+            if not 0 < t <= 1000:
+                raise ValueError("temperatures must lie above absolute zero and at most 1000 K")
+        for v in self.supply or []:
+            if not -1e4 <= v <= 1e4:
+                raise ValueError("supply voltages must lie within +-10 kV")
         for s in self.supply_scale or []:
             if not 0 < s < 10:
                 raise ValueError("supply_scale factors must lie between 0 and 10")

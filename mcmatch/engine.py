@@ -190,7 +190,7 @@ def prepare(
             f"(a device cut off or out of compliance) [{where}]",
             x0,
         )
-    return Study(
+    study = Study(
         circuit=circuit,
         measures=dict(config.measures),
         x_nominal=x0,
@@ -200,6 +200,11 @@ def prepare(
         temperature=config.temperature if temperature is None else temperature,
         sampling=config.analysis.sampling,
     )
+    bad = [name for name, value in nominal_measures(study).items() if not np.isfinite(value)]
+    if bad or not np.isfinite(x0).all():
+        what = f"measure '{bad[0]}'" if bad else "the operating point"
+        raise SolveError(f"{what} is not finite at the nominal point (a value out of range?) [{where}]", x0)
+    return study
 
 
 def nominal_measures(study: Study) -> dict[str, float]:

@@ -19,7 +19,24 @@ def to_frame(columns: dict[str, np.ndarray]) -> pd.DataFrame:
 
 
 def write_json(path: Path, data: dict) -> None:
-    path.write_text(json.dumps(data, indent=2, allow_nan=False, default=_json_default) + "\n", encoding="utf-8")
+    """JSON with no NaN or inf: a non-finite number becomes null and its key path is listed under
+    "non_finite_values", so a gap is visible rather than silent (strict JSON has no NaN)."""
+    found: list[str] = []
+    clean = _finite(data, "", found)
+    if found and isinstance(clean, dict):
+        clean["non_finite_values"] = found
+    path.write_text(json.dumps(clean, indent=2, allow_nan=False, default=_json_default) + "\n", encoding="utf-8")
+
+
+def _finite(value: object, where: str, found: list[str]) -> object:
+    if isinstance(value, dict):
+        return {k: _finite(v, f"{where}.{k}" if where else str(k), found) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v, f"{where}[{i}]", found) for i, v in enumerate(value)]
+    if isinstance(value, (float, np.floating)) and not np.isfinite(value):
+        found.append(where)
+        return None
+    return value
 
 
 def _json_default(value: object) -> object:

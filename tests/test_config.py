@@ -49,6 +49,9 @@ CASES = [
     ("unknown measure kind", 'r_nb = { resistance = "nb" }', 'r_nb = { impedance = "nb" }', "measures.r_nb"),
     ("missing technology file", "technologies/demo180.toml", "technologies/none.toml", "technology"),
     ("current in ohms", 'value = "10 uA"', 'value = "10 kohm"', "circuit.current_source[0].value"),
+    # regressions found by the fuzz tests: values that overflowed to inf in the summary
+    ("vanishing ideal ratio", "ideal = 4", "ideal = 1e-300", "measures.gain_error"),
+    ("absurd supply", 'value = "1.8 V"', "value = 1e300", "circuit.voltage_source[0].value"),
 ]
 
 
@@ -127,3 +130,15 @@ def test_config_error_pickles_with_fields():
     err = ConfigError("expected a width", file="a.toml", key="circuit.mosfet[0].w")
     back = pickle.loads(pickle.dumps(err))
     assert str(back) == str(err) and back.key == err.key and back.file == err.file
+
+
+def test_summary_json_never_holds_nan(tmp_path):
+    # Common practice, no source: strict JSON has no NaN; a gap must be visible, not silent.
+    import json
+
+    from mcmatch.results import write_json
+
+    write_json(tmp_path / "s.json", {"a": 1.0, "b": {"c": float("nan"), "d": [1.0, float("inf")]}})
+    back = json.loads((tmp_path / "s.json").read_text())
+    assert back["b"]["c"] is None and back["b"]["d"] == [1.0, None]
+    assert back["non_finite_values"] == ["b.c", "b.d[1]"]
