@@ -97,7 +97,7 @@ class Corner(Frozen):
 class Technology(Frozen):
     name: Name
     description: str = ""
-    nominal_temperature: Q("K") = Field(default=300.15, gt=0, le=1000)
+    nominal_temperature: Q("K") = Field(default=300.15, ge=1, le=1000)
     nmos: PolarityParameters | None = None
     pmos: PolarityParameters | None = None
     corners: dict[str, Corner] = Field(default_factory=dict)
@@ -281,8 +281,8 @@ class CornerStudy(Frozen):
         if self.supply is not None and self.supply_scale is not None:
             raise ValueError("give 'supply' (absolute volts) or 'supply_scale' (factors), not both")
         for t in self.temperature or []:
-            if not 0 < t <= 1000:
-                raise ValueError("temperatures must lie above absolute zero and at most 1000 K")
+            if not 1 <= t <= 1000:
+                raise ValueError("temperatures must lie between 1 K and 1000 K")
         for v in self.supply or []:
             if not -1e4 <= v <= 1e4:
                 raise ValueError("supply voltages must lie within +-10 kV")
@@ -382,7 +382,7 @@ class Placement(Frozen):
 class RawConfig(Frozen):
     title: str = Field(default="", max_length=500)
     technology: str | dict[str, Any]
-    temperature: Q("K") | None = Field(default=None, gt=0, le=1000)
+    temperature: Q("K") | None = Field(default=None, ge=1, le=1000)
     circuit: dict[str, Any]
     measures: dict[str, Measure] = Field(default_factory=dict)
     specs: dict[str, Spec] = Field(default_factory=dict)

@@ -460,8 +460,13 @@ def fast_plan(study: Study) -> FastPlan | None:
             return plan
     try:
         plan = build_fast_plan(study)
+        for block in plan.blocks:  # the block solver needs node voltages first, and at least one
+            rows = np.asarray(block.view.voltage_rows, dtype=bool)
+            count = int(rows.sum())
+            if count == 0 or not rows[:count].all():
+                raise ValueError("a block the fast path cannot order (e.g. a floating voltage source)")
     except (ValueError, np.linalg.LinAlgError):
-        plan = None
+        plan = None  # the full MNA path solves it
     _PLANS.insert(0, (study, plan))
     del _PLANS[8:]
     return plan

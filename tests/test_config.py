@@ -52,6 +52,7 @@ CASES = [
     # regressions found by the fuzz tests: values that overflowed to inf in the summary
     ("vanishing ideal ratio", "ideal = 4", "ideal = 1e-300", "measures.gain_error"),
     ("absurd supply", 'value = "1.8 V"', "value = 1e300", "circuit.voltage_source[0].value"),
+    ("temperature near absolute zero", 'temperature = "27 degC"', "temperature = 1e-300", "temperature"),
 ]
 
 
