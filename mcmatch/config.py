@@ -421,6 +421,7 @@ class Config(Frozen):
         if not changes:
             return self
         analysis = Analysis.model_validate({**self.analysis.model_dump(by_alias=True), **changes})
+        check_spec_references(analysis, self.specs, self.path)
         return self.model_copy(update={"analysis": analysis})
 
     def with_circuit(self, circuit: Netlist) -> Config:

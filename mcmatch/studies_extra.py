@@ -28,11 +28,12 @@ from mcmatch.analysis.placement import (
 )
 from mcmatch.analysis.stats import describe
 from mcmatch.analysis.yields import passes, yield_block
-from mcmatch.config import Config, check_spec_references
-from mcmatch.engine import Study, monte_carlo, nominal_measures, nominal_point, solve_samples
+from mcmatch.config import Config
+from mcmatch.engine import Study, nominal_measures, nominal_point, solve_samples
 from mcmatch.errors import SolveError
 from mcmatch.mismatch import BLOCK, mismatch_from_normals, standard_normals
 from mcmatch.sensitivity import measure_sensitivities, parameter_sigmas
+from mcmatch.studies import _mc
 
 #: Random stream of the per-die gradient draws of Pelgrom's distance term (device draws keep the main stream).
 PLACEMENT_STREAM = 8
@@ -50,16 +51,6 @@ def _finite(value: float | None) -> float | None:
         return None
     value = float(value)
     return value if math.isfinite(value) else None
-
-
-def _mc(study: Study, samples: int, options: Any) -> dict[str, np.ndarray]:
-    return monte_carlo(study, samples, jobs=getattr(options, "jobs", None), backend=getattr(options, "backend", None))
-
-
-# --------------------------------------------------------------------------------------------- validation
-def check_extra_config(config: Config) -> None:
-    """Names in [analysis.high_sigma] and [analysis.bank] must be spec'd measures; ConfigError naming the key."""
-    check_spec_references(config.analysis, config.specs, config.path)
 
 
 # --------------------------------------------------------------------------------------------- placements
@@ -290,8 +281,8 @@ def run_bank(config: Config, study: Study, options: Any = None) -> dict | None:
 # --------------------------------------------------------------------------------------------- all
 def run_extra_analyses(config: Config, study: Study, summary: dict, options: Any = None) -> dict:
     """The summary keys these studies add, each only when configured: "placements", "placement_best",
-    "high_sigma", "bank". `summary` is the main run's summary (read only)."""
-    check_extra_config(config)
+    "high_sigma", "bank". `summary` is the main run's summary (read only). The measure names these studies use
+    were checked when the config was read (config.check_spec_references)."""
     out: dict = {}
     if config.placement is not None:
         out["placements"], out["placement_best"] = run_placements(config, study, options)
