@@ -20,7 +20,7 @@ from mcmatch.errors import ConfigError, SolveError
 COMMANDS = ("run", "check", "templates", "new", "report", "bench", "placements")
 
 
-class _Terminated(Exception):  # noqa: N818 - internal signal, not an error
+class _Terminated(BaseException):  # noqa: N818 - like KeyboardInterrupt: no `except Exception` may swallow it
     pass
 
 
