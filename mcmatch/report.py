@@ -12,7 +12,6 @@ import json
 import math
 import os
 import re
-import tempfile
 import tomllib
 from collections.abc import Iterable, Mapping
 from datetime import datetime
@@ -1600,9 +1599,11 @@ def write_text_atomic(path: Path, text: str) -> None:
     """Write `text` to a temporary sibling of `path`, fsync it, then os.replace: never a half-written file."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    tmp = path.parent / f".{path.name}.{os.getpid()}-{os.urandom(4).hex()}.tmp"
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # the umask applies, as for any new file
     try:
-        os.chmod(tmp, path.stat().st_mode & 0o777 if path.exists() else 0o644)  # mkstemp makes it private
+        if path.exists():
+            os.chmod(tmp, path.stat().st_mode & 0o777)  # a replaced report keeps its mode
         with os.fdopen(fd, "w", encoding="utf-8") as handle:
             handle.write(text)
             handle.flush()

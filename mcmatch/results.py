@@ -5,12 +5,14 @@ from __future__ import annotations
 import json
 import os
 import shutil
-import tempfile
 from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
+from mcmatch.errors import ConfigError
+from mcmatch.outdir import MARKER, MARKER_TEXT, refusal, stale_temporaries, temporary_name
 
 
 def to_frame(columns: dict[str, np.ndarray]) -> pd.DataFrame:
@@ -65,25 +67,34 @@ def read_samples(path: Path) -> pd.DataFrame:
     return pd.read_csv(path)
 
 
-def write_run_folder(out_dir: Path, writer: Callable[[Path], None]) -> None:
+def write_run_folder(out_dir: Path, writer: Callable[[Path], None], force: bool = False) -> None:
     """Write a whole run folder atomically: `writer` fills a temporary sibling folder, which then replaces out_dir.
 
     A previous complete run in out_dir stays untouched until the new one is complete; on any error the temporary
-    folder is removed and nothing is left half-written.
+    folder is removed and nothing is left half-written. The folder gets the run marker (:data:`outdir.MARKER`);
+    out_dir is replaced only if it is missing, empty or a run folder (any folder with force; never a file), checked
+    again here just before the replacement. Folders and files follow the umask. Temporary folders left by a killed
+    run into the same place are removed first.
     """
     out_dir = Path(out_dir)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-", dir=out_dir.parent))
+    for stale in stale_temporaries(out_dir):
+        shutil.rmtree(stale, ignore_errors=True)
+    tmp = out_dir.parent / temporary_name(out_dir, "tmp")
+    tmp.mkdir()  # mode 0o777 less the umask (tempfile.mkdtemp would make it private)
     try:
         writer(tmp)
+        (tmp / MARKER).write_text(MARKER_TEXT, encoding="utf-8")
         for f in tmp.iterdir():
             if f.is_file():
                 with open(f, "rb") as handle:
                     os.fsync(handle.fileno())
+        reason = refusal(out_dir, force)
+        if reason is not None:
+            raise ConfigError(f"'{out_dir}' {reason}", file="command line", key="--out")
         old = None
         if out_dir.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.old-", dir=out_dir.parent))
-            old.rmdir()
+            old = out_dir.parent / temporary_name(out_dir, "old")
             os.replace(out_dir, old)
         os.replace(tmp, out_dir)
         if old is not None:

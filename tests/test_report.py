@@ -296,6 +296,7 @@ def test_report_command_rerenders_without_solving(demo_run, monkeypatch, tmp_pat
     # same summary, same samples (CSV round-trips floats exactly), same seed-free figures: the same bytes
     assert (run / "report.html").read_bytes() == original
     assert sorted(p.name for p in run.iterdir()) == [
+        ".mcmatch-run",
         "config.toml",
         "report.html",
         "samples.csv",
@@ -317,6 +318,7 @@ def test_report_write_is_atomic(demo_run, monkeypatch, tmp_path):
         write_report(run)
     assert (run / "report.html").read_bytes() == before  # untouched, no temporary file left
     assert sorted(p.name for p in run.iterdir()) == [
+        ".mcmatch-run",
         "config.toml",
         "report.html",
         "samples.csv",

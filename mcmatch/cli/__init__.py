@@ -11,6 +11,7 @@ import argparse
 import importlib
 import signal
 import sys
+import time
 import traceback
 
 from mcmatch import __version__
@@ -47,6 +48,7 @@ def _on_sigterm(signum, frame):  # noqa: ARG001
 
 
 def main(argv: list[str] | None = None) -> int:
+    started = time.perf_counter()  # the console reports the whole command's time [s]
     previous = None
     args = None
     try:  # first, before the heavy imports, so a SIGTERM at any time ends in a clean exit 143
@@ -59,6 +61,7 @@ def main(argv: list[str] | None = None) -> int:
             args = parser.parse_args(argv)
         except SystemExit as exc:  # argparse: 2 for usage errors, 0 for --help
             return int(exc.code or 0)
+        args.started = started
         if not getattr(args, "command", None):
             parser.print_help(sys.stderr)
             return 2

@@ -8,6 +8,7 @@ import sys
 
 from mcmatch.config import load_config
 from mcmatch.errors import ConfigError
+from mcmatch.outdir import check_output_file
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -40,8 +41,8 @@ def execute(args: argparse.Namespace) -> int:
         value = getattr(args, name)
         if value is not None and value < minimum:
             raise ConfigError(f"expected an integer >= {minimum}, got {value}", file="command line", key=f"--{name}")
-    if args.plot and not args.plot.lower().endswith((".svg", ".png")):
-        raise ConfigError("expected a file name ending in .svg or .png", file="command line", key="--plot")
+    if args.plot is not None:  # checked before the solves: a bad place must not cost the whole comparison
+        check_output_file(args.plot, "--plot", (".svg", ".png"))
     config = load_config(args.config).with_analysis(seed=args.seed)
     if config.placement is None:
         raise ConfigError(

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from mcmatch.outdir import check_report_target
 from mcmatch.report import write_report
 
 
@@ -16,13 +17,21 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         "written by 'mcmatch run'. Nothing is solved again; the file is replaced atomically.",
     )
     p.add_argument("run_dir", metavar="RUN_DIR", help="run folder written by 'mcmatch run'")
-    p.add_argument("--out", help="write the report here instead of RUN_DIR/report.html")
+    p.add_argument(
+        "--out", help="write the report here instead of RUN_DIR/report.html (a new .html file or an mcmatch report)"
+    )
     p.add_argument("--quiet", action="store_true", help="do not print where the report was written")
     p.set_defaults(execute=execute)
 
 
 def execute(args: argparse.Namespace) -> int:
-    path = write_report(Path(args.run_dir), Path(args.out) if args.out else None)
+    folder = Path(args.run_dir)
+    target = None
+    if args.out is not None:
+        target = check_report_target(args.out)
+    elif folder.is_dir():  # else write_report says what a run folder is
+        target = check_report_target(folder / "report.html")
+    path = write_report(folder, target)
     if not args.quiet:
         print(f"report written to {path}")
     return 0

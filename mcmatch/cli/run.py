@@ -10,6 +10,7 @@ from pathlib import Path
 
 from mcmatch.cluster import cluster_session, worker_threads
 from mcmatch.config import load_config
+from mcmatch.outdir import check_run_target
 from mcmatch.results import write_json, write_run_folder, write_samples
 from mcmatch.runner import RunOptions, run_study
 
@@ -24,7 +25,17 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         type=int,
         help="worker processes (default: all cores when a pool saves time, judged from the first chunk, else 1)",
     )
-    p.add_argument("--out", help="output folder (default: reports/<config stem>/)")
+    p.add_argument(
+        "--out",
+        help="output folder (default: reports/<config stem>/); created if missing; replaced whole only if empty or a "
+        "run folder written before (it carries a .mcmatch-run marker)",
+    )
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="also replace a non-empty --out folder that is not a run folder, and everything in it (never a file, "
+        "the current folder or a folder holding the config)",
+    )
     p.add_argument("--format", choices=("csv", "parquet"), default="csv", help="samples table format")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument(
@@ -61,13 +72,16 @@ def positive(name: str, value: int | None, minimum: int) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    started = getattr(args, "started", None) or time.perf_counter()  # set by main(): the whole command is timed
     positive("samples", args.samples, 1)
     positive("seed", args.seed, 0)
     positive("keep-samples", args.keep_samples, 0)
     config = load_config(args.config).with_analysis(
         samples=args.samples, seed=args.seed, keep_samples=args.keep_samples
     )
-    out_dir = Path(args.out) if args.out else Path("reports") / Path(args.config).stem
+    out = args.out if args.out is not None else str(Path("reports") / Path(args.config).stem)
+    target = check_run_target(out, inputs=(config.path, config.technology_path), force=args.force)
+    out_dir = Path(out)
     bar = None
     if not args.quiet and sys.stderr.isatty():
         from tqdm import tqdm
@@ -103,8 +117,7 @@ def execute(args: argparse.Namespace) -> int:
         else:
             (folder / "report.html").write_text(html, encoding="utf-8")
 
-    started = time.perf_counter()
-    write_run_folder(out_dir, write)
+    write_run_folder(target, write, force=args.force)
     s = result.summary
     y = s["yield"]
     if not args.quiet:
@@ -114,10 +127,10 @@ def execute(args: argparse.Namespace) -> int:
                 f"  {name:>16}: nominal {_num(m['nominal'], '.6g')}  mean {_num(m['mean'], '.6g')}  "
                 f"std {_num(m['std'], '.4g')} [{m['unit']}]"
             )
-        print(
-            f"  yield {_num(y['fraction'], '.5f')} (95 % CI {y['ci95'][0]:.5f} .. {y['ci95'][1]:.5f}), "
-            f"written to {out_dir} in {time.perf_counter() - started:.1f} s"
-        )
+        print(f"  yield {_num(y['fraction'], '.5f')} (95 % CI {y['ci95'][0]:.5f} .. {y['ci95'][1]:.5f})")
+        report = out_dir / "report.html"
+        shown = f"open {report}" if (target / "report.html").exists() else f"no report ('mcmatch report {out_dir}')"
+        print(f"  written to {out_dir} in {time.perf_counter() - started:.1f} s; {shown}")
     return 0
 
 
