@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import logging
 import math
+import socket
 import threading
 import time
 from collections.abc import Callable, Iterator
@@ -132,8 +133,34 @@ def start_local_cluster(distributed: Any, workers: int) -> Any:
     )
 
 
+def refused(scheduler: str, timeout: float) -> str | None:
+    """Why a TCP connection to the scheduler's host and port fails at once (refused, unknown host), else None.
+
+    Dask's client keeps retrying a refused connection until its timeout; one plain connect tells a port where nothing
+    listens from a slow network within milliseconds, so that case fails fast.
+    """
+    host, _, port = scheduler.partition("://")[2].rpartition(":")
+    try:
+        with socket.create_connection((host.strip("[]"), int(port)), timeout=timeout):
+            return None
+    except ConnectionRefusedError:
+        return "connection refused: nothing listens on that port"
+    except socket.gaierror as exc:
+        return f"unknown host ({exc.strerror or exc})"
+    except OSError:  # slow or filtered: leave the verdict to the client, within the timeout
+        return None
+
+
 def connect(distributed: Any, scheduler: str, timeout: float) -> Any:
     """A Client of the scheduler, made the default one (joblib's dask backend uses it); ConfigError if none answers."""
+    reason = refused(scheduler, timeout)
+    if reason is not None:
+        raise ConfigError(
+            f"could not reach a Dask scheduler at {scheduler} ({reason}); start one with 'dask scheduler --host "
+            "<private-ip>' and give its address",
+            file=_FILE,
+            key=_KEY,
+        )
     try:
         return distributed.Client(scheduler, timeout=timeout, set_as_default=True)
     except (OSError, TimeoutError, ValueError, TypeError) as exc:

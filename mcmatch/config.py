@@ -420,7 +420,10 @@ class Config(Frozen):
         changes = {k: v for k, v in changes.items() if v is not None}
         if not changes:
             return self
-        analysis = Analysis.model_validate({**self.analysis.model_dump(by_alias=True), **changes})
+        try:
+            analysis = Analysis.model_validate({**self.analysis.model_dump(by_alias=True), **changes})
+        except ValidationError as exc:  # the overrides come from the command line (or an API caller)
+            raise validation_to_config_error(exc, "command line", Analysis, prefix="analysis") from None
         check_spec_references(analysis, self.specs, self.path)
         return self.model_copy(update={"analysis": analysis})
 

@@ -822,17 +822,25 @@ def chunk_ranges(samples: int, jobs: int, start: int = 0, size: int | None = Non
     return [(s, min(samples, s + per_chunk)) for s in range(start, samples, per_chunk)]
 
 
+def usable_cores() -> int:
+    """CPU cores this process may run on (its affinity mask where the system has one, else all)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
+
+
 def pool_pays(seconds_in_process: float, jobs: int | None = None) -> bool:
     """Whether `jobs` workers (default: all cores) would finish work that takes `seconds_in_process` [s] here sooner
     than this process alone, counting POOL_STARTUP_S to start them."""
-    jobs = jobs or os.cpu_count() or 1
+    jobs = jobs or usable_cores()
     return jobs > 1 and seconds_in_process * (1.0 - 1.0 / jobs) > POOL_STARTUP_S
 
 
 def resolve_jobs(jobs: int | None, samples: int, seconds_in_process: float | None = None) -> int:
     """Worker count: default all cores, but in-process where a pool does not pay: judged from the expected time in
     process [s] when known (:func:`pool_pays`), else from the sample count (POOL_THRESHOLD)."""
-    cores = os.cpu_count() or 1
+    cores = usable_cores()
     if jobs is None or jobs == 0:
         if seconds_in_process is not None:
             jobs = cores if pool_pays(seconds_in_process, cores) else 1

@@ -1582,6 +1582,10 @@ def write_report(run_dir: str | os.PathLike, out: str | os.PathLike | None = Non
         if path.exists():
             try:
                 samples = read_samples(path)
+            except ImportError:
+                raise ConfigError(
+                    "reading samples.parquet needs pyarrow; install the extra mcmatch[parquet]", file=str(path)
+                ) from None
             except Exception as exc:  # pandas raises many kinds on a damaged table
                 raise ConfigError(
                     f"expected the samples table of a run ({type(exc).__name__}: {exc})", file=str(path)

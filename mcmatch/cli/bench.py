@@ -28,8 +28,11 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.cli.options import check_overrides
+    from mcmatch.config import Analysis
     from mcmatch.errors import ConfigError
 
+    check_overrides(Analysis, samples=args.samples)
     for name in ("samples", "reference_samples", "repeats"):
         value = getattr(args, name)
         if value < 1:

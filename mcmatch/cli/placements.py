@@ -6,7 +6,8 @@ import argparse
 import json
 import sys
 
-from mcmatch.config import load_config
+from mcmatch.cli.options import check_jobs, check_overrides
+from mcmatch.config import Analysis, Placement, load_config
 from mcmatch.errors import ConfigError
 from mcmatch.outdir import check_output_file
 
@@ -37,10 +38,9 @@ def execute(args: argparse.Namespace) -> int:
     from mcmatch.engine import prepare
     from mcmatch.studies_extra import run_placements
 
-    for name, minimum in (("samples", 10), ("seed", 0)):
-        value = getattr(args, name)
-        if value is not None and value < minimum:
-            raise ConfigError(f"expected an integer >= {minimum}, got {value}", file="command line", key=f"--{name}")
+    check_overrides(Placement, samples=args.samples)
+    check_overrides(Analysis, seed=args.seed)
+    check_jobs(args.jobs)
     if args.plot is not None:  # checked before the solves: a bad place must not cost the whole comparison
         check_output_file(args.plot, "--plot", (".svg", ".png"))
     config = load_config(args.config).with_analysis(seed=args.seed)

@@ -8,8 +8,9 @@ import time
 from contextlib import nullcontext
 from pathlib import Path
 
-from mcmatch.cluster import cluster_session, worker_threads
-from mcmatch.config import load_config
+from mcmatch.cli.options import check_format, check_jobs, check_overrides
+from mcmatch.cluster import cluster_session, parse_address, worker_threads
+from mcmatch.config import Analysis, load_config
 from mcmatch.outdir import check_run_target
 from mcmatch.results import write_json, write_run_folder, write_samples
 from mcmatch.runner import RunOptions, run_study
@@ -23,7 +24,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument(
         "--jobs",
         type=int,
-        help="worker processes (default: all cores when a pool saves time, judged from the first chunk, else 1)",
+        help="worker processes, at most the cores of this machine: 0 or none for automatic (all cores when a pool "
+        "saves time, judged from the first chunk, else 1), -1 all cores, -2 all but one; with --cluster, chunks in "
+        "flight (default: the cluster's worker threads)",
     )
     p.add_argument(
         "--out",
@@ -64,18 +67,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(execute=execute)
 
 
-def positive(name: str, value: int | None, minimum: int) -> None:
-    from mcmatch.errors import ConfigError
-
-    if value is not None and value < minimum:
-        raise ConfigError(f"expected an integer >= {minimum}, got {value}", file="command line", key=f"--{name}")
-
-
 def execute(args: argparse.Namespace) -> int:
     started = getattr(args, "started", None) or time.perf_counter()  # set by main(): the whole command is timed
-    positive("samples", args.samples, 1)
-    positive("seed", args.seed, 0)
-    positive("keep-samples", args.keep_samples, 0)
+    check_overrides(Analysis, samples=args.samples, seed=args.seed, keep_samples=args.keep_samples)
+    check_jobs(args.jobs, cluster=args.cluster is not None)
+    check_format(args.format)
+    target_cluster = parse_address(args.cluster) if args.cluster is not None else None  # "" is an error too
     config = load_config(args.config).with_analysis(
         samples=args.samples, seed=args.seed, keep_samples=args.keep_samples
     )
@@ -88,8 +85,9 @@ def execute(args: argparse.Namespace) -> int:
 
         bar = tqdm(total=config.analysis.samples, unit="sample", unit_scale=True, delay=1.0, file=sys.stderr)
     try:
-        with cluster_session(args.cluster, args.cluster_timeout) if args.cluster else nullcontext() as backend:
-            jobs = args.jobs if args.jobs is not None or backend is None else worker_threads()
+        session = nullcontext() if target_cluster is None else cluster_session(args.cluster, args.cluster_timeout)
+        with session as backend:
+            jobs = args.jobs if backend is None or args.jobs else worker_threads()
             result = run_study(config, RunOptions(jobs=jobs, backend=backend, progress=bar.update if bar else None))
     finally:
         if bar is not None:
