@@ -16,7 +16,7 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from mcmatch.errors import ConfigError
+from mcmatch.errors import ConfigError, quote
 from mcmatch.units import UnitError, parse_quantity
 
 GROUND = "gnd"
@@ -38,9 +38,9 @@ def Q(unit: str):  # noqa: N802 - reads like a type annotation
 
 def _finite_number(value: object) -> object:
     if isinstance(value, bool):
-        raise ValueError(f"expected a number, got {value!r}")
+        raise ValueError(f"expected a number, got {quote(value)}")
     if isinstance(value, float) and not math.isfinite(value):
-        raise ValueError(f"expected a finite number, got {value!r}")
+        raise ValueError(f"expected a finite number, got {quote(value)}")
     return value
 
 
@@ -100,7 +100,7 @@ class Technology(Frozen):
     nominal_temperature: Q("K") = Field(default=300.15, ge=1, le=1000)
     nmos: PolarityParameters | None = None
     pmos: PolarityParameters | None = None
-    corners: dict[str, Corner] = Field(default_factory=dict)
+    corners: dict[Name, Corner] = Field(default_factory=dict)
 
     @field_validator("corners")
     @classmethod
@@ -384,8 +384,8 @@ class RawConfig(Frozen):
     technology: str | dict[str, Any]
     temperature: Q("K") | None = Field(default=None, ge=1, le=1000)
     circuit: dict[str, Any]
-    measures: dict[str, Measure] = Field(default_factory=dict)
-    specs: dict[str, Spec] = Field(default_factory=dict)
+    measures: dict[Name, Measure] = Field(default_factory=dict)
+    specs: dict[Name, Spec] = Field(default_factory=dict)
     analysis: Analysis = Analysis()
     placement: Placement | None = None
     notes: str = ""
@@ -508,7 +508,7 @@ def validation_to_config_error(
     else:
         value = err.get("input")
         if kind not in ("value_error",) and not isinstance(value, (dict, list)):
-            msg = f"{msg}; got {value!r}"
+            msg = f"{msg}; got {quote(value)}"
     return ConfigError(msg, file=file, key=path or None)
 
 
@@ -525,9 +525,34 @@ def read_toml(path: Path) -> tuple[dict[str, Any], str]:
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"cannot read file: {exc}", file=str(path)) from None
     try:
-        return tomllib.loads(text), text
+        raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"not valid TOML: {exc}", file=str(path)) from None
+    except RecursionError:  # tomllib recurses once per level of nested arrays and inline tables
+        raise ConfigError(_TOO_DEEP, file=str(path)) from None
+    except ValueError as exc:  # an integer beyond Python's 4300-digit conversion limit
+        raise ConfigError(f"not valid TOML: {exc}", file=str(path)) from None
+    check_nesting(raw, str(path))
+    return raw, text
+
+
+#: Levels of tables and arrays inside each other a document may have; a real config needs about five.
+MAX_NESTING = 32
+_TOO_DEEP = f"arrays or tables nested more than {MAX_NESTING} levels deep; a config needs only a few"
+
+
+def check_nesting(data: object, file: str, limit: int = MAX_NESTING) -> None:
+    """ConfigError naming the key path where `data` nests tables/arrays deeper than `limit` (walked without
+    recursion, so no depth can exhaust the stack)."""
+    stack: list[tuple[object, tuple[Any, ...]]] = [(data, ())]
+    while stack:
+        value, loc = stack.pop()
+        if len(loc) > limit:
+            raise ConfigError(_TOO_DEEP, file=file, key=key_path(loc[: limit + 1]))
+        if isinstance(value, dict):
+            stack.extend((v, (*loc, k)) for k, v in value.items())
+        elif isinstance(value, list):
+            stack.extend((v, (*loc, i)) for i, v in enumerate(value))
 
 
 def load_technology(data: str | dict[str, Any], config_path: Path) -> tuple[Technology, str | None, str]:
@@ -561,6 +586,7 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
     file = str(path)
     if not isinstance(raw, dict):
         raise ConfigError("expected a TOML table at the top level", file=file)
+    check_nesting(raw, file)
     try:
         parsed = RawConfig.model_validate(raw)
     except ValidationError as exc:

@@ -10,6 +10,8 @@ import math
 import re
 from functools import lru_cache
 
+from mcmatch.errors import QUOTE_LIMIT, quote
+
 _NUMBER = re.compile(r"^\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
 
 #: Human-readable examples per SI unit, used in error messages.
@@ -58,7 +60,7 @@ def _unit_factor(unit_text: str, target: str) -> tuple[float, float]:
         q0 = registry.Quantity(0.0, unit).to(target_unit).magnitude
         q1 = registry.Quantity(1.0, unit).to(target_unit).magnitude
     except Exception as exc:  # pint raises many kinds on odd input; all mean the same to a user
-        raise UnitError(f"unit '{unit_text}' is not a unit of {target_text}: {type(exc).__name__}") from None
+        raise UnitError(f"unit {quote(unit_text)} is not a unit of {target_text}: {type(exc).__name__}") from None
     return float(q1 - q0), float(q0)
 
 
@@ -71,25 +73,30 @@ def parse_quantity(value: object, unit: str) -> float:
     example = EXAMPLES.get(unit, f"a quantity in {unit}")
     expected = f"expected a quantity in {unit} such as {example}"
     if isinstance(value, bool):
-        raise UnitError(f"{expected}, got {value!r}")
+        raise UnitError(f"{expected}, got {quote(value)}")
     if isinstance(value, (int, float)):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:  # an integer beyond any float
+            raise UnitError(f"{expected}, got an integer of {value.bit_length()} bits, beyond any float") from None
         if not math.isfinite(number):
-            raise UnitError(f"{expected}, got the non-finite number {value!r}")
+            raise UnitError(f"{expected}, got the non-finite number {quote(value)}")
         return number
     if not isinstance(value, str):
-        raise UnitError(f"{expected}, got {type(value).__name__} {value!r}")
+        raise UnitError(f"{expected}, got {type(value).__name__} {quote(value)}")
+    if len(value) > QUOTE_LIMIT:  # no quantity is this long; pint's parser is not for megabytes
+        raise UnitError(f"{expected}, got a string of {len(value)} characters")
     match = _NUMBER.match(value)
     if not match:
-        raise UnitError(f"{expected}, got {value!r}")
+        raise UnitError(f"{expected}, got {quote(value)}")
     number_text, unit_text = match.groups()
     if unit_text == "":  # a bare number in a string means SI, as a plain number does
         return parse_quantity(float(number_text), unit)
     try:
         scale, offset = _unit_factor(unit_text, unit)
     except UnitError as exc:
-        raise UnitError(f"{expected}, got {value!r} ({exc})") from None
+        raise UnitError(f"{expected}, got {quote(value)} ({exc})") from None
     result = scale * float(number_text) + offset
     if not math.isfinite(result):
-        raise UnitError(f"{expected}, got {value!r}, which is not finite in SI")
+        raise UnitError(f"{expected}, got {quote(value)}, which is not finite in SI")
     return result

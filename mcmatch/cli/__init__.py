@@ -13,9 +13,12 @@ import signal
 import sys
 import time
 import traceback
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any, TextIO
 
 from mcmatch import __version__
-from mcmatch.errors import ConfigError, SolveError
+from mcmatch.errors import ConfigError, SolveError, clean
 
 #: Subcommand modules, in the order `mcmatch --help` lists them.
 COMMANDS = ("run", "check", "templates", "new", "report", "bench", "placements")
@@ -47,7 +50,38 @@ def _on_sigterm(signum, frame):  # noqa: ARG001
     raise _Terminated()
 
 
+class EscapedStream:
+    """A text stream that writes control characters as escapes (:func:`errors.clean`): no title, name or path from
+    the input can move the cursor, recolour or clear the terminal. ``unescaped``: the stream beneath (progress bar)."""
+
+    def __init__(self, stream: TextIO) -> None:
+        self.unescaped = stream
+
+    def write(self, text: str) -> int:
+        return self.unescaped.write(clean(text))
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self.unescaped, name)
+
+
+@contextmanager
+def escaped_output() -> Iterator[None]:
+    """sys.stdout and sys.stderr escaped (EscapedStream) for the duration."""
+    saved = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = (s if isinstance(s, EscapedStream) else EscapedStream(s) for s in saved)
+    try:
+        yield
+    finally:
+        sys.stdout, sys.stderr = saved
+
+
 def main(argv: list[str] | None = None) -> int:
+    """The command line: parse argv, run the subcommand, return the exit status (never raises but SystemExit)."""
+    with escaped_output():
+        return _main(argv)
+
+
+def _main(argv: list[str] | None) -> int:
     started = time.perf_counter()  # the console reports the whole command's time [s]
     previous = None
     args = None

@@ -83,7 +83,8 @@ def execute(args: argparse.Namespace) -> int:
     if not args.quiet and sys.stderr.isatty():
         from tqdm import tqdm
 
-        bar = tqdm(total=config.analysis.samples, unit="sample", unit_scale=True, delay=1.0, file=sys.stderr)
+        stream = getattr(sys.stderr, "unescaped", sys.stderr)  # the bar's own \r redraws, no user text
+        bar = tqdm(total=config.analysis.samples, unit="sample", unit_scale=True, delay=1.0, file=stream)
     try:
         session = nullcontext() if target_cluster is None else cluster_session(args.cluster, args.cluster_timeout)
         with session as backend:
