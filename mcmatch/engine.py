@@ -36,6 +36,7 @@ from mcmatch.errors import SolveError
 from mcmatch.mismatch import BLOCK, Sampling, normal_source, perturbed
 from mcmatch.solver import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
 from mcmatch.technology import device_parameters
+from mcmatch.workers import Watched
 
 #: Below this many samples a run stays in-process: starting a pool (POOL_STARTUP_S) costs more than it saves on 2
 #: cores. Measured with the fast path: a 2-worker pool pays from about 1.5e7 simple-mirror or 1e7 cascode samples.
@@ -867,6 +868,8 @@ def map_chunks(
         return
     from joblib import Parallel, delayed, parallel_config
 
+    if backend is None:  # local workers end when this process dies (kill -9 included)
+        task = Watched(task, os.getpid())
     with parallel_config(backend=backend or "loky", n_jobs=jobs):
         parallel = Parallel(return_as="generator")
         yield from parallel(delayed(task)(study, start, stop) for start, stop in ranges)

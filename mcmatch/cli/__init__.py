@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import signal
 import sys
 import time
 import traceback
@@ -18,14 +17,11 @@ from contextlib import contextmanager
 from typing import Any, TextIO
 
 from mcmatch import __version__
+from mcmatch.cli import signals
 from mcmatch.errors import ConfigError, SolveError, clean
 
 #: Subcommand modules, in the order `mcmatch --help` lists them.
 COMMANDS = ("run", "check", "templates", "new", "report", "bench", "placements")
-
-
-class _Terminated(BaseException):  # noqa: N818 - like KeyboardInterrupt: no `except Exception` may swallow it
-    pass
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -44,10 +40,6 @@ def build_parser() -> argparse.ArgumentParser:
             continue
         module.add_parser(sub)
     return parser
-
-
-def _on_sigterm(signum, frame):  # noqa: ARG001
-    raise _Terminated()
 
 
 class EscapedStream:
@@ -83,43 +75,39 @@ def main(argv: list[str] | None = None) -> int:
 
 def _main(argv: list[str] | None) -> int:
     started = time.perf_counter()  # the console reports the whole command's time [s]
-    previous = None
     args = None
-    try:  # first, before the heavy imports, so a SIGTERM at any time ends in a clean exit 143
-        previous = signal.signal(signal.SIGTERM, _on_sigterm)
-    except ValueError:  # not the main thread (tests in threads): leave SIGTERM alone
-        previous = None
-    try:
-        parser = build_parser()
+    with signals.handled(deferred=True):  # first, before the heavy imports: a signal at any time ends cleanly
         try:
-            args = parser.parse_args(argv)
-        except SystemExit as exc:  # argparse: 2 for usage errors, 0 for --help
-            return int(exc.code or 0)
-        args.started = started
-        if not getattr(args, "command", None):
-            parser.print_help(sys.stderr)
+            parser = build_parser()  # imports every subcommand (numpy, scipy, pandas, ...)
+            signals.deliver()
+            try:
+                args = parser.parse_args(argv)
+            except SystemExit as exc:  # argparse: 2 for usage errors, 0 for --help
+                return int(exc.code or 0)
+            args.started = started
+            if not getattr(args, "command", None):
+                parser.print_help(sys.stderr)
+                return 2
+            status = int(args.execute(args))
+            signals.check()  # a signal whose exception a finaliser swallowed still ends the command as interrupted
+            return status
+        except ConfigError as exc:
+            print(f"mcmatch: error: {exc}", file=sys.stderr)
             return 2
-        return int(args.execute(args))
-    except ConfigError as exc:
-        print(f"mcmatch: error: {exc}", file=sys.stderr)
-        return 2
-    except SolveError as exc:  # the circuit cannot be biased: an input problem, named with its config file
-        config = getattr(args, "config", None)
-        where = f"{config}: key 'circuit': " if config else ""
-        print(f"mcmatch: error: {where}{exc.message}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("mcmatch: interrupted; nothing was written", file=sys.stderr)
-        return 130
-    except _Terminated:
-        print("mcmatch: terminated; nothing was written", file=sys.stderr)
-        return 143
-    except BrokenPipeError:
-        return 1
-    except Exception as exc:  # an internal error: say so, with the traceback for a bug report
-        traceback.print_exc(file=sys.stderr)
-        print(f"mcmatch: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
-        return 1
-    finally:
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
+        except SolveError as exc:  # the circuit cannot be biased: an input problem, named with its config file
+            config = getattr(args, "config", None)
+            where = f"{config}: key 'circuit': " if config else ""
+            print(f"mcmatch: error: {where}{exc.message}", file=sys.stderr)
+            return 2
+        except (KeyboardInterrupt, signals.Terminated) as exc:
+            written = getattr(args, "written", None)  # set once a run folder has replaced the previous one
+            what = f"{written} was written before the signal" if written else "nothing was written"
+            word = "interrupted" if isinstance(exc, KeyboardInterrupt) else "terminated"
+            print(f"mcmatch: {word}; {what}", file=sys.stderr)
+            return 130 if isinstance(exc, KeyboardInterrupt) else 143
+        except BrokenPipeError:
+            return 1
+        except Exception as exc:  # an internal error: say so, with the traceback for a bug report
+            traceback.print_exc(file=sys.stderr)
+            print(f"mcmatch: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
+            return 1

@@ -6,8 +6,11 @@ import argparse
 import sys
 import time
 from contextlib import nullcontext
+from functools import partial
 from pathlib import Path
+from typing import Any
 
+from mcmatch.cli import signals
 from mcmatch.cli.options import check_format, check_jobs, check_overrides
 from mcmatch.cluster import cluster_session, parse_address, worker_threads
 from mcmatch.config import Analysis, load_config
@@ -89,7 +92,7 @@ def execute(args: argparse.Namespace) -> int:
         session = nullcontext() if target_cluster is None else cluster_session(args.cluster, args.cluster_timeout)
         with session as backend:
             jobs = args.jobs if backend is None or args.jobs else worker_threads()
-            result = run_study(config, RunOptions(jobs=jobs, backend=backend, progress=bar.update if bar else None))
+            result = run_study(config, RunOptions(jobs=jobs, backend=backend, progress=partial(_progress, bar)))
     finally:
         if bar is not None:
             bar.close()
@@ -116,7 +119,12 @@ def execute(args: argparse.Namespace) -> int:
         else:
             (folder / "report.html").write_text(html, encoding="utf-8")
 
-    write_run_folder(target, write, force=args.force)
+    def fill(folder: Path) -> None:
+        write(folder)
+        signals.check()  # last safe point: a lost interrupt must not replace the previous run
+
+    write_run_folder(target, fill, force=args.force)
+    args.written = str(out_dir)
     s = result.summary
     y = s["yield"]
     if not args.quiet:
@@ -131,6 +139,13 @@ def execute(args: argparse.Namespace) -> int:
         shown = f"open {report}" if (target / "report.html").exists() else f"no report ('mcmatch report {out_dir}')"
         print(f"  written to {out_dir} in {time.perf_counter() - started:.1f} s; {shown}")
     return 0
+
+
+def _progress(bar: Any, samples: int) -> None:
+    """After each chunk [samples]: stop here if a signal's exception was lost, else advance the bar (if any)."""
+    signals.check()
+    if bar is not None:
+        bar.update(samples)
 
 
 def _num(value: float | None, spec: str) -> str:
