@@ -10,6 +10,7 @@ import numpy as np
 from mcmatch.config import load_config
 from mcmatch.engine import nominal_measures, prepare
 from mcmatch.errors import ConfigError, SolveError
+from mcmatch.multistart import other_operating_points, several_points_warning
 from mcmatch.operating_point import LOW_HEADROOM, device_operating_points, warnings_for
 from mcmatch.templates import format_quantity, netlist_toml
 from mcmatch.units import UnitError, parse_quantity
@@ -136,6 +137,9 @@ def execute(args: argparse.Namespace) -> int:
     warnings = warnings_for(config, points, x)
     nominal = nominal_measures(study)
     nodes = {n: float(x[i]) for i, n in enumerate(study.circuit.nodes)}
+    others = other_operating_points(study)
+    if others:
+        warnings.append(several_points_warning(nodes, others))
     if args.json:
         document = {
             "title": config.title,
@@ -147,6 +151,7 @@ def execute(args: argparse.Namespace) -> int:
             "devices": points,
             "measures": nominal,
             "warnings": warnings,
+            "other_operating_points": others,
         }
         print(json.dumps(document, indent=2))
         return 0
@@ -179,6 +184,7 @@ def execute(args: argparse.Namespace) -> int:
     else:
         print(
             f"no warnings: every device conducts, every non-diode device is saturated with at least "
-            f"{LOW_HEADROOM * 1e3:.0f} mV of headroom, every node lies within the supply rails"
+            f"{LOW_HEADROOM * 1e3:.0f} mV of headroom, every node lies within the supply rails, and solving from "
+            "other starting voltages finds no other operating point"
         )
     return 0
