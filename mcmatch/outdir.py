@@ -122,10 +122,14 @@ def check_run_target(
                 file=_FILE,
                 key="--out",
             )
-    reason = refusal(target, force)
+    try:
+        reason = refusal(target, force)
+        if reason is None:
+            check_writable_parent(target, "--out", shown)
+    except OSError as exc:  # a folder on the way that this user may not enter
+        raise ConfigError(f"{shown} cannot be examined: {exc.strerror or exc}", file=_FILE, key="--out") from None
     if reason is not None:
         raise ConfigError(f"{shown} {reason}", file=_FILE, key="--out")
-    check_writable_parent(target, "--out", shown)
     return target
 
 
@@ -144,17 +148,23 @@ def check_writable_parent(target: Path, option: str, shown: str | None = None) -
         )
 
 
-def check_output_file(path: str | os.PathLike, option: str, suffixes: tuple[str, ...]) -> Path:
-    """An output file named on the command line: expected suffix, not a folder, its folder writable or creatable."""
+def check_output_file(path: str | os.PathLike, option: str, suffixes: tuple[str, ...] | None = None) -> Path:
+    """An output file named on the command line: expected suffix (if given), not a folder, its folder writable or
+    creatable."""
     text = os.fspath(path)
     target = Path(text).expanduser()
-    if not text.strip() or target.suffix.lower() not in suffixes:
+    if not text.strip():
+        raise ConfigError("expected a file name, got an empty string", file=_FILE, key=option)
+    if suffixes is not None and target.suffix.lower() not in suffixes:
         raise ConfigError(
             f"expected a file name ending in {' or '.join(suffixes)}, got '{text}'", file=_FILE, key=option
         )
-    if target.is_dir():
-        raise ConfigError(f"'{text}' is a folder; expected a file name", file=_FILE, key=option)
-    check_writable_parent(target.resolve(), option, f"'{text}'")
+    try:
+        if target.is_dir():
+            raise ConfigError(f"'{text}' is a folder; expected a file name", file=_FILE, key=option)
+        check_writable_parent(target.resolve(), option, f"'{text}'")
+    except OSError as exc:  # a folder on the way that this user may not enter
+        raise ConfigError(f"'{text}' cannot be examined: {exc.strerror or exc}", file=_FILE, key=option) from None
     return target
 
 

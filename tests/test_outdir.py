@@ -129,6 +129,30 @@ def test_a_read_only_place_is_refused_before_the_run(demo_project, tmp_path, cap
     assert snapshot(tmp_path) == before
 
 
+def test_a_place_that_cannot_be_entered_is_refused_before_the_run(demo_project, tmp_path, capsys, monkeypatch):
+    closed = tmp_path / "closed"
+    closed.mkdir()
+    before = snapshot(tmp_path)
+    if os.geteuid() == 0:  # root enters anything: make looking inside fail as it does for other users
+        real = Path.is_symlink
+
+        def is_symlink(self: Path) -> bool:
+            if closed in self.parents:
+                raise PermissionError(13, "Permission denied")
+            return real(self)
+
+        monkeypatch.setattr(Path, "is_symlink", is_symlink)
+    else:
+        closed.chmod(0)
+    try:
+        assert run(demo_project, closed / "run") == 2
+    finally:
+        closed.chmod(0o700)
+    err = capsys.readouterr().err
+    assert "--out" in err and "cannot be examined" in err and "Permission denied" in err and "Traceback" not in err
+    assert snapshot(tmp_path) == before
+
+
 @pytest.mark.parametrize("mask", [0o022, 0o002])
 def test_run_folders_follow_the_umask(demo_project, tmp_path, mask):
     # POSIX open(2)/mkdir(2): a new file gets 0666 & ~umask, a new folder 0777 & ~umask
@@ -203,4 +227,20 @@ def test_placements_plot_place_is_checked_before_the_solves(tmp_path, capsys):
     assert main(["placements", str(config), "--plot", str(tmp_path / "file" / "p.svg")]) == 2
     err = capsys.readouterr().err
     assert "--plot" in err and "is a file, not a folder" in err
+    assert snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize("force", [[], ["--force"]], ids=["plain", "force"])
+def test_new_out_is_checked_like_every_output(tmp_path, capsys, force):
+    (tmp_path / "folder").mkdir()
+    (tmp_path / "file").write_text("x")
+    before = snapshot(tmp_path)
+    for target, words in (
+        (tmp_path / "folder", "is a folder"),
+        (tmp_path / "file" / "new.toml", "is a file, not a folder"),
+        ("", "expected a file name"),
+    ):
+        assert main(["new", "simple_mirror", "--out", str(target), *force]) == 2
+        err = capsys.readouterr().err
+        assert "--out" in err and words in err and "Traceback" not in err, err
     assert snapshot(tmp_path) == before

@@ -11,6 +11,7 @@ from pathlib import Path
 import mcmatch
 from mcmatch.config import Measure, Netlist, config_from_dict
 from mcmatch.errors import ConfigError
+from mcmatch.outdir import check_output_file
 from mcmatch.templates import (
     DEFAULT_WIDTH,
     TEMPLATES,
@@ -219,7 +220,7 @@ def starter_config(name: str, polarity: str, technology: str, folder: Path, expa
 
 def execute(args: argparse.Namespace) -> int:
     get_template(args.template, "command line")
-    out = Path(args.out) if args.out else None
+    out = None if args.out is None else Path(check_output_file(args.out, "--out"))  # "" is an error too
     folder = out.parent if out is not None else Path.cwd()
     if out is not None and out.exists() and not args.force:
         raise ConfigError("the file exists; choose another --out or add --force", str(out), "--out")
