@@ -1,4 +1,4 @@
-"""Tests for mcmatch.analysis.area and the area study: Pelgrom scaling, the Kinget minimum area, fit and search."""
+"""Tests for mcmatch.stats.area and the area study: Pelgrom scaling, the Kinget minimum area, fit and search."""
 
 from __future__ import annotations
 
@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.analysis.area import (
+from mcmatch.config.schema import Limits, config_from_dict
+from mcmatch.stats.area import (
     FLOOR_CHI2,
     SigmaFit,
     fit_sigma,
@@ -19,8 +20,7 @@ from mcmatch.analysis.area import (
     pelgrom_area,
     scaled_netlist,
 )
-from mcmatch.config import Limits, config_from_dict
-from mcmatch.studies import run_area
+from mcmatch.studies.analyses import run_area
 
 UM = 1e-6
 A_VT = 5e-3 * UM  # 5 mV um [V m]

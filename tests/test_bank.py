@@ -10,11 +10,11 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.analysis.bank import bank_yield
-from mcmatch.config import config_from_dict, load_config
-from mcmatch.engine import prepare
+from mcmatch.config.schema import config_from_dict, load_config
 from mcmatch.errors import ConfigError
-from mcmatch.studies_extra import bank_channels, run_bank, run_extra_analyses
+from mcmatch.run.engine import prepare
+from mcmatch.stats.bank import bank_yield
+from mcmatch.studies.extra import bank_channels, run_bank, run_extra_analyses
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"
 

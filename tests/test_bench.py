@@ -7,9 +7,9 @@ import json
 import numpy as np
 import pytest
 
-from mcmatch.bench import CIRCUITS, POLARITIES, TOLERANCE, agreement, bench_config, reference_solve
 from mcmatch.cli import main
-from mcmatch.engine import nominal_measures, prepare, run_chunk
+from mcmatch.run.bench import CIRCUITS, POLARITIES, TOLERANCE, agreement, bench_config, reference_solve
+from mcmatch.run.engine import nominal_measures, prepare, run_chunk
 
 
 @pytest.mark.parametrize("kind", POLARITIES)

@@ -1,4 +1,4 @@
-"""Tests for mcmatch.operating_point and `mcmatch check`: regions, textbook small-signal values, EKV inversion,
+"""Tests for mcmatch.model.operating_point and `mcmatch check`: regions, textbook small-signal values, EKV inversion,
 designer's warnings, and the command line."""
 
 from __future__ import annotations
@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config import config_from_dict
-from mcmatch.devices import thermal_voltage
-from mcmatch.engine import nominal_measures, prepare
-from mcmatch.operating_point import device_operating_points, ekv_saturation_voltage, warnings_for
+from mcmatch.config.schema import config_from_dict
+from mcmatch.model.devices import thermal_voltage
+from mcmatch.model.operating_point import device_operating_points, ekv_saturation_voltage, warnings_for
+from mcmatch.run.engine import nominal_measures, prepare
 from mcmatch.units import parse_quantity
 
 ROOT = Path(__file__).resolve().parent.parent

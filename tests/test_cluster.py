@@ -21,14 +21,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mcmatch import engine
 from mcmatch.cli import main
-from mcmatch.cluster import cluster_session, parse_address
-from mcmatch.config import load_config
-from mcmatch.engine import map_chunks, prepare, run_chunk
+from mcmatch.config.schema import load_config
+from mcmatch.draws.mismatch import BLOCK
 from mcmatch.errors import ConfigError
-from mcmatch.mismatch import BLOCK
-from mcmatch.results import read_samples
+from mcmatch.results.tables import read_samples
+from mcmatch.run import engine
+from mcmatch.run.cluster import cluster_session, parse_address
+from mcmatch.run.engine import map_chunks, prepare, run_chunk
 
 DEMO = Path(__file__).resolve().parents[1] / "configs" / "demo.toml"
 

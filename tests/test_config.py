@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config import load_config
+from mcmatch.config.schema import load_config
 from mcmatch.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -137,7 +137,7 @@ def test_summary_json_never_holds_nan(tmp_path):
     # Common practice, no source: strict JSON has no NaN; a gap must be visible, not silent.
     import json
 
-    from mcmatch.results import write_json
+    from mcmatch.results.tables import write_json
 
     write_json(tmp_path / "s.json", {"a": 1.0, "b": {"c": float("nan"), "d": [1.0, float("inf")]}})
     back = json.loads((tmp_path / "s.json").read_text())

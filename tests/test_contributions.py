@@ -1,5 +1,5 @@
-"""Tests for mcmatch.sensitivity and mcmatch.analysis.contributions: implicit-function sensitivities, device Hessians,
-variance shares against Pelgrom / Kinget and against Monte Carlo."""
+"""Tests for mcmatch.model.sensitivity and mcmatch.stats.contributions: implicit-function sensitivities, device
+Hessians, variance shares against Pelgrom / Kinget and against Monte Carlo."""
 
 from __future__ import annotations
 
@@ -9,19 +9,19 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.analysis.contributions import contribution_table, std_interval
-from mcmatch.circuit import evaluate_measures
-from mcmatch.config import config_from_dict
-from mcmatch.devices import ekv, square_law
-from mcmatch.engine import monte_carlo, nominal_point, prepare
-from mcmatch.sensitivity import (
+from mcmatch.config.schema import config_from_dict
+from mcmatch.model.circuit import evaluate_measures
+from mcmatch.model.devices import ekv, square_law
+from mcmatch.model.sensitivity import (
     ekv_hessian,
     measure_sensitivities,
     parameter_labels,
     parameter_sigmas,
     square_law_hessian,
 )
-from mcmatch.studies import run_contributions
+from mcmatch.run.engine import monte_carlo, nominal_point, prepare
+from mcmatch.stats.contributions import contribution_table, std_interval
+from mcmatch.studies.analyses import run_contributions
 
 UM = 1e-6
 
@@ -101,7 +101,7 @@ def cascode_pmos_config(model: str = "square-law") -> object:
 
 # --------------------------------------------------------------------------------------------- device Hessians
 def _hessian_by_differences(model, volts, params, step=1e-6):
-    """Central differences of the analytic first derivatives from mcmatch.devices (test only)."""
+    """Central differences of the analytic first derivatives from mcmatch.model.devices (test only)."""
     out = np.zeros((4, 4))
     for j in range(4):
         up, down = list(volts), list(volts)

@@ -9,13 +9,13 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-from mcmatch.circuit import GMIN, residual_jacobian
 from mcmatch.cli import main
-from mcmatch.config import config_from_dict
-from mcmatch.engine import monte_carlo, nominal_measures, prepare, run_chunk, solve_samples
-from mcmatch.mismatch import BLOCK, standard_normals
-from mcmatch.results import read_samples
-from mcmatch.technology import pair_sigma, pelgrom_sigma
+from mcmatch.config.schema import config_from_dict
+from mcmatch.draws.mismatch import BLOCK, standard_normals
+from mcmatch.model.circuit import GMIN, residual_jacobian
+from mcmatch.model.technology import pair_sigma, pelgrom_sigma
+from mcmatch.results.tables import read_samples
+from mcmatch.run.engine import monte_carlo, nominal_measures, prepare, run_chunk, solve_samples
 
 # Test technologies: round textbook-style numbers (value from memory of typical classroom examples), not a process.
 TEXTBOOK = {
@@ -174,7 +174,7 @@ def test_diode_node_resistance_is_one_over_gm_plus_gds(kind, technology):
     cfg = diode(kind, technology)
     study = prepare(cfg)
     nominal = nominal_measures(study)
-    from mcmatch.circuit import extend, mosfet_currents
+    from mcmatch.model.circuit import extend, mosfet_currents
 
     p = study.circuit.params
     xe = extend(study.x_nominal[None, :])
@@ -214,8 +214,8 @@ def test_batched_solve_matches_scipy_root(kind, builder, technology):
     dbeta = rng.standard_normal((n, p.count)) * 1e-2
     batched = solve_samples(study, dvth, dbeta)
     assert batched["converged"].all()
-    from mcmatch.circuit import evaluate_measures
-    from mcmatch.mismatch import perturbed
+    from mcmatch.draws.mismatch import perturbed
+    from mcmatch.model.circuit import evaluate_measures
 
     vth, beta = perturbed(p, dvth, dbeta)
     for s in range(n):

@@ -1,4 +1,4 @@
-"""Tests for mcmatch.analysis.corners and the corner study, and the analyses in a whole in-process run."""
+"""Tests for mcmatch.stats.corners and the corner study, and the analyses in a whole in-process run."""
 
 from __future__ import annotations
 
@@ -8,14 +8,14 @@ from pathlib import Path
 
 import pytest
 
-import mcmatch.studies
-from mcmatch.analysis.corners import CRITERION_SPREAD, corner_grid, worst_corners
+import mcmatch.studies.analyses
 from mcmatch.cli import main
-from mcmatch.config import Limits, config_from_dict
-from mcmatch.devices import thermal_voltage
+from mcmatch.config.schema import Limits, config_from_dict
 from mcmatch.errors import SolveError
-from mcmatch.studies import run_corners
-from mcmatch.technology import device_parameters
+from mcmatch.model.devices import thermal_voltage
+from mcmatch.model.technology import device_parameters
+from mcmatch.stats.corners import CRITERION_SPREAD, corner_grid, worst_corners
+from mcmatch.studies.analyses import run_corners
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -140,14 +140,14 @@ def test_supply_and_temperature_reach_the_solve():
 
 
 def test_a_corner_without_operating_point_is_reported_not_raised(monkeypatch):
-    real = mcmatch.studies.prepare
+    real = mcmatch.studies.analyses.prepare
 
     def failing(config, corner="tt", **kwargs):
         if corner == "ss":
             raise SolveError("the operating point could not be found")
         return real(config, corner=corner, **kwargs)
 
-    monkeypatch.setattr(mcmatch.studies, "prepare", failing)
+    monkeypatch.setattr(mcmatch.studies.analyses, "prepare", failing)
     config = mirror_config({"process": ["tt", "ss", "ff"], "samples": 50})
     entries, worst = run_corners(config, {"measures": {"err": {"nominal": 0.0}}})
     assert [("error" in e) for e in entries] == [False, True, False]

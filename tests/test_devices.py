@@ -1,4 +1,4 @@
-"""Tests for mcmatch.devices: textbook limits, analytic derivatives, symmetry and vectorisation."""
+"""Tests for mcmatch.model.devices: textbook limits, analytic derivatives, symmetry and vectorisation."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import scipy.constants
 
-from mcmatch.devices import (
+from mcmatch.model.devices import (
     ekv,
     ekv_inversion_coefficient,
     square_law,

@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.analysis import high_sigma as hs
-from mcmatch.analysis.yields import passes
-from mcmatch.config import Limits, config_from_dict, load_config
-from mcmatch.engine import monte_carlo, prepare
-from mcmatch.studies_extra import run_extra_analyses, run_high_sigma
+from mcmatch.config.schema import Limits, config_from_dict, load_config
+from mcmatch.run.engine import monte_carlo, prepare
+from mcmatch.stats import high_sigma as hs
+from mcmatch.stats.yields import passes
+from mcmatch.studies.extra import run_extra_analyses, run_high_sigma
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"
 

@@ -14,7 +14,7 @@ import psutil
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.mismatch import BLOCK
+from mcmatch.draws.mismatch import BLOCK
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "configs" / "demo.toml"
@@ -83,14 +83,14 @@ def _swallow(sig: int) -> None:
 def test_a_signal_lost_in_a_finaliser_still_ends_the_run(demo_project, tmp_path, capsys, monkeypatch, sig, status):
     # Common practice, no source: a signal must end the run even where Python itself drops its exception
     # ("Exception ignored in ... __del__"), and the previous result must survive it.
-    import mcmatch.runner
+    import mcmatch.studies.pipeline
 
     out = tmp_path / "run"
     args = ["run", str(demo_project), "--out", str(out), "--quiet", "--no-report", "--jobs", "1"]
     assert main([*args, "--samples", "100"]) == 0
     before = (out / "summary.json").read_bytes()
     solved = []
-    real_chunk = mcmatch.runner.run_chunk
+    real_chunk = mcmatch.studies.pipeline.run_chunk
 
     def chunk_then_signal(study, start, stop):
         solved.append((start, stop))
@@ -101,8 +101,8 @@ def test_a_signal_lost_in_a_finaliser_still_ends_the_run(demo_project, tmp_path,
 
     lost = []  # what Python reports as "Exception ignored in ..."
     monkeypatch.setattr(sys, "unraisablehook", lambda u: lost.append(u.exc_type))
-    monkeypatch.setattr(mcmatch.runner, "run_chunk", chunk_then_signal)
-    monkeypatch.setattr(mcmatch.engine, "run_chunk", chunk_then_signal)
+    monkeypatch.setattr(mcmatch.studies.pipeline, "run_chunk", chunk_then_signal)
+    monkeypatch.setattr(mcmatch.run.engine, "run_chunk", chunk_then_signal)
     assert main([*args, "--samples", str(3 * BLOCK)]) == status
     assert len(lost) == 1 and not issubclass(lost[0], Exception)  # the exception was indeed lost where raised
     assert "nothing was written" in capsys.readouterr().err

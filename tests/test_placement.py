@@ -10,17 +10,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.analysis.placement import (
+from mcmatch.cli import main
+from mcmatch.config.schema import Placement, config_from_dict
+from mcmatch.draws.placement import (
     cell_layout,
     count_warnings,
     device_shifts,
     distance_terms,
     pick_best,
 )
-from mcmatch.cli import main
-from mcmatch.config import Placement, config_from_dict
-from mcmatch.engine import prepare
-from mcmatch.studies_extra import run_extra_analyses, run_placements
+from mcmatch.run.engine import prepare
+from mcmatch.studies.extra import run_extra_analyses, run_placements
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"
 P = 4e-6  # cell pitch [m]
@@ -259,7 +259,7 @@ def test_placements_command_without_placement_table_exits_2(capsys):
 
 def test_plot_placement_draws_every_cell():
     # common practice, no source: one square per cell, one centroid marker per device
-    from mcmatch.plots_placement import placement_figure, plot_placement
+    from mcmatch.report.figure_placement import placement_figure, plot_placement
 
     config = mirror_config([{"name": "quad", "rows": ["DABD", "DBAD"]}])
     entries, _ = run_placements(config, prepare(config), samples=50)

@@ -12,10 +12,8 @@ import pytest
 from scipy import stats
 from scipy.special import ndtr
 
-from mcmatch.analysis import streaming
-from mcmatch.config import config_from_dict
-from mcmatch.engine import prepare, run_chunk, with_seed
-from mcmatch.mismatch import (
+from mcmatch.config.schema import config_from_dict
+from mcmatch.draws.mismatch import (
     BLOCK,
     SOBOL_SCRAMBLINGS,
     SobolStream,
@@ -23,7 +21,9 @@ from mcmatch.mismatch import (
     sobol_jump,
     standard_normals,
 )
-from mcmatch.runner import RunOptions, run_study
+from mcmatch.run.engine import prepare, run_chunk, with_seed
+from mcmatch.stats import streaming
+from mcmatch.studies.pipeline import RunOptions, run_study
 
 R = SOBOL_SCRAMBLINGS
 
@@ -195,7 +195,7 @@ def test_same_sobol_results_for_any_chunking_and_worker_count():
 
 def test_report_shows_the_sampling_error_table():
     # Project contract (issue 9): the report renders summary["sampling"] when present.
-    from mcmatch.report import sampling_section, sampling_text
+    from mcmatch.report.render import sampling_section, sampling_text
 
     summary = run_study(kinget_mirror(R * 256, 3, "sobol"), RunOptions(jobs=1, keep_samples=0)).summary
     section = sampling_section(summary)

@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.report import MAX_KEY_MEASURES, celsius, eng, render_report, write_report, yield_text
-from mcmatch.results import read_samples
+from mcmatch.report.render import MAX_KEY_MEASURES, celsius, eng, render_report, write_report, yield_text
+from mcmatch.results.tables import read_samples
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "configs" / "demo.toml"
@@ -290,8 +290,8 @@ def test_report_command_rerenders_without_solving(demo_run, monkeypatch, tmp_pat
     def no_solving(*args, **kwargs):
         raise AssertionError("mcmatch report must not solve")
 
-    monkeypatch.setattr("mcmatch.engine.monte_carlo", no_solving)
-    monkeypatch.setattr("mcmatch.engine.prepare", no_solving)
+    monkeypatch.setattr("mcmatch.run.engine.monte_carlo", no_solving)
+    monkeypatch.setattr("mcmatch.run.engine.prepare", no_solving)
     assert main(["report", str(run), "--quiet"]) == 0
     # same summary, same samples (CSV round-trips floats exactly), same seed-free figures: the same bytes
     assert (run / "report.html").read_bytes() == original
@@ -313,7 +313,7 @@ def test_report_write_is_atomic(demo_run, monkeypatch, tmp_path):
     def broken(*args, **kwargs):
         raise RuntimeError("renderer failed")
 
-    monkeypatch.setattr("mcmatch.report.render_report", broken)
+    monkeypatch.setattr("mcmatch.report.render.render_report", broken)
     with pytest.raises(RuntimeError):
         write_report(run)
     assert (run / "report.html").read_bytes() == before  # untouched, no temporary file left
@@ -464,7 +464,7 @@ def test_engineering_units():
 
 
 def test_plot_functions_take_and_return_axes():
-    from mcmatch import plots
+    from mcmatch.report import figures as plots
 
     rng = np.random.default_rng(1)
     values = rng.normal(1e-5, 1e-7, 500)

@@ -10,10 +10,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch import engine
-from mcmatch.analysis import streaming
-from mcmatch.analysis.stats import describe
-from mcmatch.analysis.streaming import (
+from mcmatch.cli import main
+from mcmatch.config.schema import Limits, load_config
+from mcmatch.draws.mismatch import BLOCK
+from mcmatch.results.tables import read_samples
+from mcmatch.run import engine
+from mcmatch.run.engine import monte_carlo, nominal_measures, prepare, run_chunk
+from mcmatch.solve.newton import SOLVER_DEFAULTS
+from mcmatch.stats import streaming
+from mcmatch.stats.describe import describe
+from mcmatch.stats.streaming import (
     ChunkReducer,
     Grid,
     Histogram,
@@ -24,13 +30,7 @@ from mcmatch.analysis.streaming import (
     block_starts,
     fold_blocks,
 )
-from mcmatch.cli import main
-from mcmatch.config import Limits, load_config
-from mcmatch.engine import monte_carlo, nominal_measures, prepare, run_chunk
-from mcmatch.mismatch import BLOCK
-from mcmatch.results import read_samples
-from mcmatch.runner import RunOptions, run_study, spec_yields
-from mcmatch.solver import SOLVER_DEFAULTS
+from mcmatch.studies.pipeline import RunOptions, run_study, spec_yields
 
 # A 1:4 NMOS mirror on invented, illustrative process values (not a foundry's); no corners, area or contributions,
 # so a run is only the main Monte Carlo.

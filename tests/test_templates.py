@@ -1,5 +1,5 @@
-"""Tests for mcmatch.templates: expansions against hand-written netlists, textbook output resistances and compliance
-voltages, parameter errors, and the `templates` / `new` commands."""
+"""Tests for mcmatch.config.templates: expansions against hand-written netlists, textbook output resistances and
+compliance voltages, parameter errors, and the `templates` / `new` commands."""
 
 from __future__ import annotations
 
@@ -10,14 +10,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.circuit import GMIN
 from mcmatch.cli import main
-from mcmatch.config import config_from_dict
-from mcmatch.devices import square_law
-from mcmatch.engine import nominal_measures, prepare
+from mcmatch.config.schema import config_from_dict
+from mcmatch.config.templates import TEMPLATES, expand_template, format_quantity, unit_counts
 from mcmatch.errors import ConfigError
-from mcmatch.operating_point import device_operating_points
-from mcmatch.templates import TEMPLATES, expand_template, format_quantity, unit_counts
+from mcmatch.model.circuit import GMIN
+from mcmatch.model.devices import square_law
+from mcmatch.model.operating_point import device_operating_points
+from mcmatch.run.engine import nominal_measures, prepare
 from mcmatch.units import parse_quantity
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -248,7 +248,7 @@ def test_unit_counts(ratios, reference, outputs):
 
 # --- output resistance -----------------------------------------------------------------------------------------------
 def _small_signal(point: dict, params, k: int) -> tuple[float, float, float]:
-    """gm, gds, gmb [S] of device k from mcmatch.devices.square_law's analytic derivatives at the solved point.
+    """gm, gds, gmb [S] of device k from mcmatch.model.devices.square_law's analytic derivatives at the solved point.
 
     The point's voltages are magnitudes (n-channel sense), which is how the model sees a pmos too.
     """
@@ -444,7 +444,7 @@ def test_templates_command_lists_every_template(capsys):
 def test_new_writes_a_starter_that_runs(name, tmp_path, capsys, monkeypatch):
     # every starter config must run as written (common practice, no source); the HTML report is the report's own
     # tests' business (the demo configs below render it), so it is stubbed here to keep this fast
-    monkeypatch.setattr("mcmatch.report.render_report", lambda *args, **kwargs: "<html></html>")
+    monkeypatch.setattr("mcmatch.report.render.render_report", lambda *args, **kwargs: "<html></html>")
     starter = tmp_path / "sub" / f"{name}.toml"
     assert main(["new", name, "--out", str(starter)]) == 0
     text = starter.read_text()
@@ -536,7 +536,7 @@ DEMOS = ["bank", "precision_mirror", "lowvoltage_cascode"]
 @pytest.mark.parametrize("name", DEMOS)
 def test_demo_configs_run(name, tmp_path, capsys, monkeypatch):
     if name != "precision_mirror":  # one demo renders the real report; the others stub it to keep the suite fast
-        monkeypatch.setattr("mcmatch.report.render_report", lambda *args, **kwargs: "<html></html>")
+        monkeypatch.setattr("mcmatch.report.render.render_report", lambda *args, **kwargs: "<html></html>")
     path = ROOT / "configs" / f"{name}.toml"
     text = path.read_text()
     assert "illustrative" in text.lower()

@@ -1,4 +1,4 @@
-"""Tests for mcmatch.analysis.yields: intervals, zero-failure bounds, samples needed, Cp/Cpk, Gaussian tails."""
+"""Tests for mcmatch.stats.yields: intervals, zero-failure bounds, samples needed, Cp/Cpk, Gaussian tails."""
 
 from __future__ import annotations
 
@@ -7,7 +7,8 @@ import math
 import pytest
 from scipy import stats
 
-from mcmatch.analysis.yields import (
+from mcmatch.config.schema import Limits
+from mcmatch.stats.yields import (
     clopper_pearson,
     gaussian_tail,
     lower_bound,
@@ -20,7 +21,6 @@ from mcmatch.analysis.yields import (
     yield_extras,
     zero_failure_upper_bound,
 )
-from mcmatch.config import Limits
 
 
 def test_zero_failures_in_1000_two_sided_bound():

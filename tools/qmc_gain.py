@@ -18,10 +18,10 @@ import time
 
 import numpy as np
 
-from mcmatch.analysis.streaming import sampling_summary
-from mcmatch.config import Config, load_config
-from mcmatch.engine import nominal_measures, prepare
-from mcmatch.runner import RunOptions, stream_statistics
+from mcmatch.config.schema import Config, load_config
+from mcmatch.run.engine import nominal_measures, prepare
+from mcmatch.stats.streaming import sampling_summary
+from mcmatch.studies.pipeline import RunOptions, stream_statistics
 
 
 def one_run(config: Config, samples: int, seed: int, sampling: str) -> dict:

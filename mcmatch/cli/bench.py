@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
-from mcmatch.bench import CIRCUITS, POLARITIES, REFERENCE_SAMPLES, TOLERANCE, run_bench
+from mcmatch.run.bench import CIRCUITS, POLARITIES, REFERENCE_SAMPLES, TOLERANCE, run_bench
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -29,7 +29,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def execute(args: argparse.Namespace) -> int:
     from mcmatch.cli.options import check_overrides
-    from mcmatch.config import Analysis
+    from mcmatch.config.schema import Analysis
     from mcmatch.errors import ConfigError
 
     check_overrides(Analysis, samples=args.samples)

@@ -9,10 +9,8 @@ import tomllib
 from pathlib import Path
 
 import mcmatch
-from mcmatch.config import Measure, Netlist, config_from_dict
-from mcmatch.errors import ConfigError
-from mcmatch.outdir import check_output_file
-from mcmatch.templates import (
+from mcmatch.config.schema import Measure, Netlist, config_from_dict
+from mcmatch.config.templates import (
     DEFAULT_WIDTH,
     TEMPLATES,
     expand_template,
@@ -22,6 +20,8 @@ from mcmatch.templates import (
     parameter_names,
     toml_value,
 )
+from mcmatch.errors import ConfigError
+from mcmatch.results.folder import check_output_file
 
 #: The technology library beside the package in a source checkout (configs/technologies/NAME.toml).
 TECHNOLOGY_LIBRARY = Path(mcmatch.__file__).resolve().parent.parent / "configs" / "technologies"

@@ -7,9 +7,9 @@ import json
 import sys
 
 from mcmatch.cli.options import check_jobs, check_overrides
-from mcmatch.config import Analysis, Placement, load_config
+from mcmatch.config.schema import Analysis, Placement, load_config
 from mcmatch.errors import ConfigError
-from mcmatch.outdir import check_output_file
+from mcmatch.results.folder import check_output_file
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -35,8 +35,8 @@ def _percent_or_si(value: float | None, unit: str) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from mcmatch.engine import prepare
-    from mcmatch.studies_extra import run_placements
+    from mcmatch.run.engine import prepare
+    from mcmatch.studies.extra import run_placements
 
     check_overrides(Placement, samples=args.samples)
     check_overrides(Analysis, seed=args.seed)
@@ -58,7 +58,7 @@ def execute(args: argparse.Namespace) -> int:
     study = prepare(config)
     entries, best = run_placements(config, study, _Options(), samples=args.samples)
     if args.plot:
-        from mcmatch.plots_placement import placement_figure
+        from mcmatch.report.figure_placement import placement_figure
 
         placement_figure(entries).savefig(args.plot)
     if args.json:

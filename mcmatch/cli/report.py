@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from mcmatch.outdir import check_report_target
-from mcmatch.report import write_report
+from mcmatch.report.render import write_report
+from mcmatch.results.folder import check_report_target
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:

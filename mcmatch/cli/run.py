@@ -12,11 +12,11 @@ from typing import Any
 
 from mcmatch.cli import signals
 from mcmatch.cli.options import check_format, check_jobs, check_overrides
-from mcmatch.cluster import cluster_session, parse_address, worker_threads
-from mcmatch.config import Analysis, load_config
-from mcmatch.outdir import check_run_target
-from mcmatch.results import write_json, write_run_folder, write_samples
-from mcmatch.runner import RunOptions, run_study
+from mcmatch.config.schema import Analysis, load_config
+from mcmatch.results.folder import check_run_target
+from mcmatch.results.tables import write_json, write_run_folder, write_samples
+from mcmatch.run.cluster import cluster_session, parse_address, worker_threads
+from mcmatch.studies.pipeline import RunOptions, run_study
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -106,7 +106,7 @@ def execute(args: argparse.Namespace) -> int:
             (folder / "technology.toml").write_text(config.technology_text, encoding="utf-8")
         if args.no_report:
             return
-        from mcmatch.report import render_report
+        from mcmatch.report.render import render_report
 
         try:  # rendered whole, then written: never half a report; a rendering bug must not cost the solved results
             html = render_report(result.summary, result.table, config.text)

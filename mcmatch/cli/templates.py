@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from mcmatch.templates import TEMPLATES, get_template, parameter_rows
+from mcmatch.config.templates import TEMPLATES, get_template, parameter_rows
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:

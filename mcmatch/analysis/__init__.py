@@ -1,1 +1,0 @@
-"""Analyses: tables and arrays in, plain dicts out (SI units); nothing here solves a circuit."""

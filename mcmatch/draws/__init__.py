@@ -1,0 +1,1 @@
+"""Random and Sobol' streams, Pelgrom sigmas, placement gradient terms."""

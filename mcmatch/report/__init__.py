@@ -1,0 +1,1 @@
+"""Formatting, sections, figures and the template rendered into one HTML file."""

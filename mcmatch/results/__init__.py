@@ -1,0 +1,1 @@
+"""The run summary, run folders (atomic, marker file), CSV/Parquet/JSON."""

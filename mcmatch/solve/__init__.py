@@ -1,0 +1,1 @@
+"""Batched Newton solves and the solve plan."""

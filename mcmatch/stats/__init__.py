@@ -1,0 +1,1 @@
+"""Tables in, numbers out: moments, quantiles, yields and intervals, fits."""

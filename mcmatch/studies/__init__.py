@@ -1,0 +1,1 @@
+"""One module per analysis and the pipeline that runs the configured ones."""
