@@ -1,17 +1,22 @@
-"""`mcmatch bench`: engine speed against a per-sample scipy.optimize.root loop, with an agreement check."""
+"""`mcmatch bench`: engine speed against per-sample scipy.optimize.root loops, with agreement checks; latency."""
 
 from __future__ import annotations
 
 import argparse
 import json
 
-from mcmatch.run.bench import CIRCUITS, POLARITIES, REFERENCE_SAMPLES, TOLERANCE, run_bench
+from mcmatch.run.bench import CIRCUITS, LATENCY_RUNS, POLARITIES, REFERENCE_SAMPLES, TOLERANCE
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "bench",
-        help="time the batched engine against a per-sample scipy.optimize.root loop on the same circuit and samples",
+        help="time the batched engine against per-sample scipy.optimize.root loops on the same circuit and samples, "
+        "and the latency of fresh processes",
+        description="Times the batched engine (warm, one process) against scipy.optimize.root one sample at a time, "
+        "on the residual a designer would write for that circuit (the speed-up) and on the general MNA residual "
+        "(second column); both must agree with the engine to 1e-9 relative. Then the median wall time of fresh "
+        "processes: 'mcmatch --version' and a whole 'mcmatch run configs/demo.toml --quiet'.",
     )
     p.add_argument("--circuit", choices=CIRCUITS, default="simple", help="bench circuit (default: simple)")
     p.add_argument("--polarity", choices=POLARITIES, default="nmos", help="device polarity (default: nmos)")
@@ -23,6 +28,14 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help=f"samples solved by the scipy reference, cost extrapolated (default: {REFERENCE_SAMPLES})",
     )
     p.add_argument("--repeats", type=int, default=1, help="timed engine passes, best one reported (default: 1)")
+    p.add_argument(
+        "--latency-runs",
+        type=int,
+        default=LATENCY_RUNS,
+        metavar="N",
+        help=f"fresh processes timed per latency figure, median reported (default: {LATENCY_RUNS})",
+    )
+    p.add_argument("--no-latency", action="store_true", help="skip the end-to-end latency figures")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     p.set_defaults(execute=execute)
 
@@ -31,27 +44,47 @@ def execute(args: argparse.Namespace) -> int:
     from mcmatch.cli.options import check_overrides
     from mcmatch.config.schema import Analysis
     from mcmatch.errors import ConfigError
+    from mcmatch.run.bench import DEMO_CONFIG, run_bench
 
     check_overrides(Analysis, samples=args.samples)
-    for name in ("samples", "reference_samples", "repeats"):
+    for name in ("samples", "reference_samples", "repeats", "latency_runs"):
         value = getattr(args, name)
         if value < 1:
             flag = "--" + name.replace("_", "-")
             raise ConfigError(f"expected an integer >= 1, got {value}", file="command line", key=flag)
-    result = run_bench(args.circuit, args.samples, args.polarity, args.reference_samples, args.repeats)
+    latency_runs = 0 if args.no_latency else args.latency_runs
+    if latency_runs and not DEMO_CONFIG.is_file():
+        raise ConfigError(
+            f"the demo config {DEMO_CONFIG} is not there (an installed package); add --no-latency",
+            file="command line",
+            key="--latency-runs",
+        )
+    result = run_bench(
+        args.circuit, args.samples, args.polarity, args.reference_samples, args.repeats, latency_runs=latency_runs
+    )
     if args.json:
         print(json.dumps(result.as_dict(), allow_nan=False))
     else:
         d = result.as_dict()
         print(f"mcmatch bench: {d['circuit']} mirror ({d['polarity']}), {d['samples']} samples, warm, one process")
         print(f"  engine     {d['engine_samples_per_s']:14,.0f} samples/s  ({d['engine_seconds']:.3f} s)")
+        n_ref = d["reference_samples"]
+        print(f"  reference (scipy.optimize.root per sample, {n_ref} samples, analytic Jacobians):")
         print(
-            f"  reference  {d['reference_samples_per_s']:14,.0f} samples/s  "
-            f"(scipy.optimize.root per sample, {d['reference_samples']} samples)"
+            f"    circuit KCL residual {d['reference_samples_per_s']:12,.0f} samples/s   speed-up "
+            f"{d['speedup']:10,.0f} x   max rel. diff {d['max_rel_diff_circuit']:.2e}"
         )
-        print(f"  speed-up   {d['speedup']:14,.0f} x")
-        print(f"  agreement  max relative difference {d['max_rel_diff']:.2e} (required <= {TOLERANCE:g})")
+        print(
+            f"    general MNA residual {d['reference_mna_samples_per_s']:12,.0f} samples/s   speed-up "
+            f"{d['speedup_mna']:10,.0f} x   max rel. diff {d['max_rel_diff_mna']:.2e}"
+        )
+        print(f"  agreement  required <= {TOLERANCE:g} relative for both: {'yes' if d['agree'] else 'NO'}")
         print(f"  peak RSS   {d['peak_rss_bytes'] / 2**20:10.0f} MiB; failed solves {d['failed_solves']}")
+        if d["latency"] is not None:
+            lat = d["latency"]
+            print(f"  latency    fresh processes, median of {lat['runs']}:")
+            print(f"    mcmatch --version                 {lat['version_s']:8.2f} s")
+            print(f"    mcmatch run demo.toml --quiet      {lat['demo_run_s']:8.2f} s  (summary, samples, report)")
     if not result.agree:
         import sys
 

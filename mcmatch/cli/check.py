@@ -5,15 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
-import numpy as np
-
-from mcmatch.config.schema import load_config
-from mcmatch.config.templates import format_quantity, netlist_toml
 from mcmatch.errors import ConfigError, SolveError
-from mcmatch.model.operating_point import LOW_HEADROOM, device_operating_points, warnings_for
-from mcmatch.run.engine import nominal_measures, prepare
-from mcmatch.run.multistart import other_operating_points, several_points_warning
-from mcmatch.units import UnitError, parse_quantity
 
 COLUMNS = (
     ("device", "name"),
@@ -48,6 +40,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def _cell(point: dict, key: str) -> str:
+    from mcmatch.config.templates import format_quantity
+
     value = point[key]
     if key == "inversion":
         return f"{value} ({point['ic']:.3g})"
@@ -78,6 +72,8 @@ def device_table(points: list[dict]) -> str:
 
 
 def _conditions(args: argparse.Namespace, config) -> tuple[str, float, tuple[str, float] | None]:
+    from mcmatch.units import UnitError, parse_quantity
+
     corner = (args.corner or "tt").lower()
     try:
         config.technology.corner(corner)
@@ -108,6 +104,8 @@ def _conditions(args: argparse.Namespace, config) -> tuple[str, float, tuple[str
 
 def _runaway(config, partial: object) -> str:
     """Name the nodes the failed solve drove far beyond the supply, if the partial result shows any."""
+    import numpy as np
+
     try:
         x = np.asarray(partial.x, dtype=float).reshape(-1)  # type: ignore[attr-defined]
     except (AttributeError, TypeError, ValueError):
@@ -121,6 +119,12 @@ def _runaway(config, partial: object) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.config.schema import load_config
+    from mcmatch.config.templates import format_quantity, netlist_toml
+    from mcmatch.model.operating_point import LOW_HEADROOM, device_operating_points, warnings_for
+    from mcmatch.run.engine import nominal_measures, prepare
+    from mcmatch.run.multistart import other_operating_points, several_points_warning
+
     config = load_config(args.config)
     corner, temperature, supply = _conditions(args, config)
     try:

@@ -7,21 +7,13 @@ import os
 import sys
 import tomllib
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import mcmatch
-from mcmatch.config.schema import Measure, Netlist, config_from_dict
-from mcmatch.config.templates import (
-    DEFAULT_WIDTH,
-    TEMPLATES,
-    expand_template,
-    format_quantity,
-    get_template,
-    netlist_toml,
-    parameter_names,
-    toml_value,
-)
 from mcmatch.errors import ConfigError
-from mcmatch.results.folder import check_output_file
+
+if TYPE_CHECKING:
+    from mcmatch.config.schema import Measure
 
 #: The technology library beside the package in a source checkout (configs/technologies/NAME.toml).
 TECHNOLOGY_LIBRARY = Path(mcmatch.__file__).resolve().parent.parent / "configs" / "technologies"
@@ -114,6 +106,8 @@ def _technology_file(choice: str) -> Path | None:
 
 def technology_line(choice: str, folder: Path) -> tuple[str, str]:
     """(top-level `technology = ...` line, trailing inline table or "") for a config written into `folder`."""
+    from mcmatch.config.templates import toml_value
+
     tech = _technology_file(choice)
     if tech is not None:
         try:
@@ -127,6 +121,8 @@ def technology_line(choice: str, folder: Path) -> tuple[str, str]:
 
 
 def _measure_table(measure: Measure) -> str:
+    from mcmatch.config.templates import toml_value
+
     fields = measure.model_dump(exclude_none=True)
     if "ratio" in fields:
         fields["ratio"] = list(fields["ratio"])
@@ -138,6 +134,8 @@ def _measure_table(measure: Measure) -> str:
 
 def _parameter_lines(name: str, polarity: str, supply: float) -> list[str]:
     """`key = value` lines of every template parameter, each under a comment saying what it means."""
+    from mcmatch.config.templates import DEFAULT_WIDTH, TEMPLATES, format_quantity, parameter_names, toml_value
+
     model = TEMPLATES[name].parameters
     lines = []
     for key in parameter_names(name):
@@ -164,6 +162,9 @@ def _parameter_lines(name: str, polarity: str, supply: float) -> list[str]:
 
 def starter_config(name: str, polarity: str, technology: str, folder: Path, expanded: bool = False) -> str:
     """The text of a commented starter config for template `name`, to be written into directory `folder`."""
+    from mcmatch.config.schema import Netlist
+    from mcmatch.config.templates import expand_template, get_template, netlist_toml, toml_value
+
     template = get_template(name, "command line")
     tech_line, inline = technology_line(technology, folder)
     defaults = template.parameters.model_validate({"type": polarity})
@@ -219,6 +220,10 @@ def starter_config(name: str, polarity: str, technology: str, folder: Path, expa
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.config.schema import config_from_dict
+    from mcmatch.config.templates import get_template
+    from mcmatch.results.folder import check_output_file
+
     get_template(args.template, "command line")
     out = None if args.out is None else Path(check_output_file(args.out, "--out"))  # "" is an error too
     folder = out.parent if out is not None else Path.cwd()

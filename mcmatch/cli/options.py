@@ -7,11 +7,12 @@ option and the accepted range (exit 2).
 from __future__ import annotations
 
 import importlib
-from typing import Any
-
-from pydantic import BaseModel
+from typing import TYPE_CHECKING, Any
 
 from mcmatch.errors import ConfigError
+
+if TYPE_CHECKING:  # pydantic only for the annotation: building the parser must stay light
+    from pydantic import BaseModel
 
 _FILE = "command line"
 

@@ -7,9 +7,7 @@ import json
 import sys
 
 from mcmatch.cli.options import check_jobs, check_overrides
-from mcmatch.config.schema import Analysis, Placement, load_config
 from mcmatch.errors import ConfigError
-from mcmatch.results.folder import check_output_file
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -35,6 +33,8 @@ def _percent_or_si(value: float | None, unit: str) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.config.schema import Analysis, Placement, load_config
+    from mcmatch.results.folder import check_output_file
     from mcmatch.run.engine import prepare
     from mcmatch.studies.extra import run_placements
 

@@ -5,9 +5,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from mcmatch.report.render import write_report
-from mcmatch.results.folder import check_report_target
-
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
@@ -25,6 +22,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.report.render import write_report
+    from mcmatch.results.folder import check_report_target
+
     folder = Path(args.run_dir)
     target = None
     if args.out is not None:

@@ -12,11 +12,6 @@ from typing import Any
 
 from mcmatch.cli import signals
 from mcmatch.cli.options import check_format, check_jobs, check_overrides
-from mcmatch.config.schema import Analysis, load_config
-from mcmatch.results.folder import check_run_target
-from mcmatch.results.tables import write_json, write_run_folder, write_samples
-from mcmatch.run.cluster import cluster_session, parse_address, worker_threads
-from mcmatch.studies.pipeline import RunOptions, run_study
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -72,6 +67,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def execute(args: argparse.Namespace) -> int:
     started = getattr(args, "started", None) or time.perf_counter()  # set by main(): the whole command is timed
+    from mcmatch.config.schema import Analysis, load_config
+    from mcmatch.results.folder import check_run_target
+    from mcmatch.results.tables import write_json, write_run_folder, write_samples
+    from mcmatch.run.cluster import cluster_session, parse_address, worker_threads
+    from mcmatch.studies.pipeline import RunOptions, run_study
+
     check_overrides(Analysis, samples=args.samples, seed=args.seed, keep_samples=args.keep_samples)
     check_jobs(args.jobs, cluster=args.cluster is not None)
     check_format(args.format)

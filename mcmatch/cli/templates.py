@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import argparse
 
-from mcmatch.config.templates import TEMPLATES, get_template, parameter_rows
-
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("templates", help="list the built-in circuit templates, their parameters and defaults")
@@ -15,6 +13,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def describe(name: str) -> str:
     """A template's name, summary, notes and one line per parameter: name, default, meaning."""
+    from mcmatch.config.templates import TEMPLATES, parameter_rows
+
     template = TEMPLATES[name]
     lines = [f"{name}: {template.summary}"]
     if template.notes:
@@ -28,6 +28,8 @@ def describe(name: str) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.config.templates import TEMPLATES, get_template
+
     names = [get_template(args.name, "command line").name] if args.name else list(TEMPLATES)
     print(
         'Use one in a config as [circuit] template = "NAME" plus its parameters; "mcmatch new NAME" writes a starter.'

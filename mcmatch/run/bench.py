@@ -1,26 +1,35 @@
-"""Speed check: the batched engine against a per-sample ``scipy.optimize.root`` loop on the same equations.
+"""Speed check: the batched engine against per-sample ``scipy.optimize.root`` loops on the same samples.
 
-Both solve the full MNA equations of :func:`mcmatch.model.circuit.residual_jacobian` (the engine through its reduced
-fast path, the reference through scipy's hybrid method with the analytic Jacobian, one sample at a time, from the
-nominal point). The reference runs on a subset of the samples and its per-sample cost is extrapolated; the engine runs
-all of them, warm (one untimed pass first), with sampling and the small-signal resistance included. The circuits are
-explicit netlists on a bundled, invented technology: illustrative values, no foundry's data.
+Two references solve one sample at a time with scipy's hybrid method and analytic Jacobians, from the nominal point
+(:mod:`mcmatch.run.reference`): the residual a designer would write for that one circuit (the unknown node voltages,
+KCL with the square law; the headline speed-up), and the engine's general MNA residual (every node voltage and source
+current unknown; a second column). Both must agree with the engine to TOLERANCE (DESIGN.md section 4). The references
+run on a subset of the samples and their per-sample cost is extrapolated; the engine runs all of them, warm (one
+untimed pass first), with sampling and the small-signal resistance included. Optionally, the end-to-end latency of
+fresh processes: ``mcmatch --version`` and a whole demo run. The circuits are explicit netlists on a bundled, invented
+technology: illustrative values, no foundry's data.
+
+The command line reads this module's constants while it builds its parser, so numpy, scipy and the engine are
+imported inside the functions that use them.
 """
 
 from __future__ import annotations
 
 import resource
+import statistics
+import subprocess
+import sys
+import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import numpy as np
-from scipy import optimize
+if TYPE_CHECKING:
+    import numpy as np
 
-from mcmatch.config.schema import Config, config_from_dict
-from mcmatch.draws.mismatch import mismatch_from_normals, perturbed, standard_normals
-from mcmatch.model.circuit import evaluate_measures, residual_jacobian
-from mcmatch.run.engine import Study, chunk_ranges, prepare, run_chunk, solve_unknowns
+    from mcmatch.config.schema import Config
+    from mcmatch.run.engine import Study
 
 #: Illustrative 180 nm-class technology, INVENTED VALUES (same spirit as configs/technologies/demo180.toml).
 TECHNOLOGY: dict = {
@@ -52,10 +61,14 @@ CIRCUITS = ("simple", "cascode", "bank")
 POLARITIES = ("nmos", "pmos")
 #: Channels of the multi-output bank.
 BANK_CHANNELS = 8
-#: Samples solved by the scipy reference (its cost per sample is extrapolated from these).
+#: Samples solved by each scipy reference (its cost per sample is extrapolated from these).
 REFERENCE_SAMPLES = 2000
-#: Agreement required between the engine and the reference, relative.
+#: Agreement required between the engine and each reference, relative.
 TOLERANCE = 1e-9
+#: Fresh processes timed per latency figure (the median is reported).
+LATENCY_RUNS = 3
+#: The config whose whole run (`mcmatch run CONFIG --quiet --out TMP`) the latency figure times.
+DEMO_CONFIG = Path(__file__).resolve().parents[2] / "configs" / "demo.toml"
 
 
 def _mos(name: str, kind: str, drain: str, gate: str, source: str, m: int = 1, bulk: str | None = None) -> dict:
@@ -118,6 +131,8 @@ def _netlist(circuit: str, kind: str) -> tuple[dict, dict]:
 
 def bench_config(circuit: str = "simple", kind: str = "nmos", samples: int = 1_000_000, seed: int = 1) -> Config:
     """The validated config of a bench circuit ("simple", "cascode", "bank") in polarity `kind`."""
+    from mcmatch.config.schema import config_from_dict
+
     if kind not in POLARITIES:
         raise ValueError(f"unknown polarity {kind!r}; expected nmos or pmos")
     netlist, measures = _netlist(circuit, kind)
@@ -131,50 +146,150 @@ def bench_config(circuit: str = "simple", kind: str = "nmos", samples: int = 1_0
     return config_from_dict(raw, Path(f"<bench {circuit} {kind}>"))
 
 
-def reference_solve(study: Study, vth: np.ndarray, beta: np.ndarray) -> tuple[np.ndarray, bool]:
-    """One sample by scipy.optimize.root (hybrid method, analytic Jacobian) from the nominal point.
+def engine_draws(study: Study, start: int, stop: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The engine's mismatch of samples start..stop: (dvth [V], dbeta [1], vth [V], beta [A/V^2]), each (S, nd)."""
+    from mcmatch.draws.mismatch import mismatch_from_normals, perturbed, standard_normals
 
-    vth [V], beta [A/V^2]: (n_devices,). Returns the MNA unknowns (n,) and whether scipy converged (or stopped at
-    machine precision with a vanishing residual).
-    """
-    circuit = study.circuit
-
-    def fun(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        f, j = residual_jacobian(circuit, x[None, :], vth[None, :], beta[None, :])
-        return f[0], j[0]
-
-    sol = optimize.root(fun, study.x_nominal.copy(), jac=True, method="hybr", options={"xtol": 1e-14})
-    return sol.x, bool(sol.success or np.abs(sol.fun).max() < 1e-18)
-
-
-def reference_run(study: Study, start: int, stop: int) -> tuple[np.ndarray, dict[str, np.ndarray], np.ndarray]:
-    """Samples start..stop the reference way: the engine's draws, then one scipy solve and measure per sample.
-
-    Returns unknowns (S, n), measures {name: (S,)} and the converged mask (S,).
-    """
     p = study.circuit.params
     dvth, dbeta = mismatch_from_normals(p, standard_normals(study.seed, start, stop, 2 * p.count, study.stream))
     vth, beta = perturbed(p, dvth, dbeta)
+    return dvth, dbeta, vth, beta
+
+
+def reference_run(study: Study, start: int, stop: int) -> tuple[np.ndarray, dict[str, np.ndarray], np.ndarray]:
+    """Samples start..stop on the general MNA residual: the engine's draws, then one scipy solve and measure each.
+
+    Returns unknowns (S, n), measures {name: (S,)} and the converged mask (S,).
+    """
+    import numpy as np
+
+    from mcmatch.run.reference import mna_measures
+
+    _, _, vth, beta = engine_draws(study, start, stop)
     n = stop - start
     xs = np.empty((n, study.circuit.n_unknowns))
     ok = np.zeros(n, dtype=bool)
     values: dict[str, np.ndarray] = {key: np.empty(n) for key in study.measures}
     for s in range(n):
-        xs[s], ok[s] = reference_solve(study, vth[s], beta[s])
-        one = evaluate_measures(study.circuit, study.measures, xs[s : s + 1], vth[s : s + 1], beta[s : s + 1])
+        xs[s], one, ok[s] = mna_measures(study, vth[s], beta[s])
         for key, v in one.items():
-            values[key][s] = v[0]
+            values[key][s] = v
     return xs, values, ok
+
+
+def designer_run(
+    study: Study, circuit: str, kind: str, start: int, stop: int
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """Samples start..stop by the hand-written residual of the bench circuit: measures {name: (S,)}, converged (S,)."""
+    import numpy as np
+
+    from mcmatch.run.reference import designer_reference
+
+    _, _, vth, beta = engine_draws(study, start, stop)
+    solve = designer_reference(study, circuit, kind).solve
+    n = stop - start
+    ok = np.zeros(n, dtype=bool)
+    values: dict[str, np.ndarray] = {key: np.empty(n) for key in study.measures}
+    for s in range(n):
+        one, ok[s] = solve(vth[s], beta[s])
+        for key in values:
+            values[key][s] = one[key]
+    return values, ok
 
 
 def relative_difference(a: np.ndarray, b: np.ndarray) -> float:
     """max |a - b| / max(|a|, |b|) over entries (0 where both are 0)."""
+    import numpy as np
+
     a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
     scale = np.maximum(np.abs(a), np.abs(b))
     diff = np.abs(a - b)
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.where(scale > 0, diff / scale, 0.0)
     return float(rel.max(initial=0.0))
+
+
+def _measure_difference(study: Study, engine: dict, reference: dict, both: np.ndarray) -> float:
+    """Worst relative difference over the measures (a ratio measure r/ideal - 1 compared as the ratio itself, so a
+    near-zero error is not divided by itself)."""
+    worst = 0.0
+    for key, measure in study.measures.items():
+        shift = 1.0 if measure.kind == "ratio" else 0.0
+        worst = max(worst, relative_difference(engine[key][both] + shift, reference[key][both] + shift))
+    return worst
+
+
+def agreement(study: Study, samples: int) -> tuple[float, int, float]:
+    """Engine versus the MNA reference on samples 0..samples: (max relative difference, reference failures,
+    reference time [s]). Compared: every MNA unknown (node voltages, source currents) and every measure."""
+    from mcmatch.run.engine import run_chunk, solve_unknowns
+
+    started = time.perf_counter()
+    x_ref, m_ref, ok = reference_run(study, 0, samples)
+    seconds = time.perf_counter() - started
+    dvth, dbeta, _, _ = engine_draws(study, 0, samples)
+    x_eng, converged = solve_unknowns(study, dvth, dbeta)
+    m_eng = run_chunk(study, 0, samples)
+    both = ok & converged
+    worst = max(relative_difference(x_eng[both], x_ref[both]), _measure_difference(study, m_eng, m_ref, both))
+    failures = int((~ok).sum() + (ok & ~converged).sum())
+    return worst, failures, seconds
+
+
+def designer_agreement(study: Study, circuit: str, kind: str, samples: int) -> tuple[float, int, float]:
+    """Engine versus the hand-written reference on samples 0..samples: (max relative difference over every measure,
+    reference failures, reference time [s])."""
+    from mcmatch.run.engine import run_chunk
+
+    started = time.perf_counter()
+    m_ref, ok = designer_run(study, circuit, kind, 0, samples)
+    seconds = time.perf_counter() - started
+    m_eng = run_chunk(study, 0, samples)
+    both = ok & m_eng["converged"]
+    failures = int((~both).sum())
+    return _measure_difference(study, m_eng, m_ref, both), failures, seconds
+
+
+def time_engine(study: Study, samples: int, repeats: int = 1) -> tuple[float, int]:
+    """Best wall time [s] of solving `samples` samples in-process, chunk by chunk as a run does; failed solves."""
+    from mcmatch.run.engine import chunk_ranges, run_chunk
+
+    ranges = chunk_ranges(samples, 1)
+    best, failed = float("inf"), 0
+    for _ in range(max(1, repeats)):
+        failed = 0
+        started = time.perf_counter()
+        for start, stop in ranges:
+            failed += int((~run_chunk(study, start, stop)["converged"]).sum())
+        best = min(best, time.perf_counter() - started)
+    return best, failed
+
+
+def _timed(command: list[str]) -> float:
+    """Wall time [s] of one fresh process; RuntimeError (with its stderr) if it fails."""
+    started = time.perf_counter()
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    seconds = time.perf_counter() - started
+    if done.returncode != 0:
+        raise RuntimeError(f"{' '.join(command)} exited with {done.returncode}: {done.stderr.strip()[-2000:]}")
+    return seconds
+
+
+def latency(runs: int = LATENCY_RUNS, config: Path = DEMO_CONFIG) -> dict:
+    """End-to-end latency of fresh processes, median of `runs` each [s]: ``mcmatch --version`` and
+    ``mcmatch run CONFIG --quiet --out TMP`` (summary, samples and report written), taken in turn."""
+    command = [sys.executable, "-m", "mcmatch"]
+    version, run = [], []
+    with tempfile.TemporaryDirectory(prefix="mcmatch-bench-") as tmp:
+        for i in range(max(1, runs)):
+            version.append(_timed([*command, "--version"]))
+            run.append(_timed([*command, "run", str(config), "--quiet", "--out", str(Path(tmp) / f"run{i}")]))
+    return {
+        "runs": len(run),
+        "version_s": statistics.median(version),
+        "demo_run_s": statistics.median(run),
+        "demo_config": str(config),
+    }
 
 
 @dataclass
@@ -189,6 +304,10 @@ class BenchResult:
     failed_solves: int
     reference_failures: int
     peak_rss_bytes: int
+    reference_mna_seconds: float = float("nan")
+    max_rel_diff_mna: float = float("nan")
+    reference_mna_failures: int = 0
+    latency: dict | None = None
 
     @property
     def engine_samples_per_s(self) -> float:
@@ -196,15 +315,27 @@ class BenchResult:
 
     @property
     def reference_samples_per_s(self) -> float:
+        """The hand-written circuit residual's rate [samples/s]."""
         return self.reference_samples / self.reference_seconds
 
     @property
+    def reference_mna_samples_per_s(self) -> float:
+        """The general MNA residual's rate [samples/s]."""
+        return self.reference_samples / self.reference_mna_seconds
+
+    @property
     def speedup(self) -> float:
+        """Engine against the hand-written circuit residual."""
         return self.engine_samples_per_s / self.reference_samples_per_s
 
     @property
+    def speedup_mna(self) -> float:
+        return self.engine_samples_per_s / self.reference_mna_samples_per_s
+
+    @property
     def agree(self) -> bool:
-        return self.max_rel_diff <= TOLERANCE and self.reference_failures == 0
+        worst = max(self.max_rel_diff, self.max_rel_diff_mna)
+        return worst <= TOLERANCE and self.reference_failures == 0 and self.reference_mna_failures == 0
 
     def as_dict(self) -> dict:
         return {
@@ -212,53 +343,26 @@ class BenchResult:
             "polarity": self.polarity,
             "samples": self.samples,
             "engine_samples_per_s": self.engine_samples_per_s,
+            "reference": "scipy.optimize.root per sample on the circuit's own KCL residual (analytic Jacobian)",
             "reference_samples_per_s": self.reference_samples_per_s,
             "speedup": self.speedup,
-            "max_rel_diff": self.max_rel_diff,
+            "reference_mna": "scipy.optimize.root per sample on the general MNA residual (analytic Jacobian)",
+            "reference_mna_samples_per_s": self.reference_mna_samples_per_s,
+            "speedup_mna": self.speedup_mna,
+            "max_rel_diff": max(self.max_rel_diff, self.max_rel_diff_mna),
+            "max_rel_diff_circuit": self.max_rel_diff,
+            "max_rel_diff_mna": self.max_rel_diff_mna,
             "tolerance": TOLERANCE,
             "agree": self.agree,
             "reference_samples": self.reference_samples,
             "engine_seconds": self.engine_seconds,
             "reference_seconds": self.reference_seconds,
+            "reference_mna_seconds": self.reference_mna_seconds,
             "failed_solves": self.failed_solves,
-            "reference_failures": self.reference_failures,
+            "reference_failures": self.reference_failures + self.reference_mna_failures,
             "peak_rss_bytes": self.peak_rss_bytes,
+            "latency": self.latency,
         }
-
-
-def agreement(study: Study, samples: int) -> tuple[float, int, float]:
-    """Engine versus reference on samples 0..samples: (max relative difference, reference failures, reference time).
-
-    Compared: every MNA unknown (node voltages, source currents) and every measure (a ratio measure r/ideal - 1 as
-    the ratio itself, so a near-zero error is not divided by itself).
-    """
-    started = time.perf_counter()
-    x_ref, m_ref, ok = reference_run(study, 0, samples)
-    seconds = time.perf_counter() - started
-    p = study.circuit.params
-    dvth, dbeta = mismatch_from_normals(p, standard_normals(study.seed, 0, samples, 2 * p.count, study.stream))
-    x_eng, converged = solve_unknowns(study, dvth, dbeta)
-    m_eng = run_chunk(study, 0, samples)
-    both = ok & converged
-    worst = relative_difference(x_eng[both], x_ref[both])
-    for key, measure in study.measures.items():
-        shift = 1.0 if measure.kind == "ratio" else 0.0
-        worst = max(worst, relative_difference(m_eng[key][both] + shift, m_ref[key][both] + shift))
-    failures = int((~ok).sum() + (ok & ~converged).sum())
-    return worst, failures, seconds
-
-
-def time_engine(study: Study, samples: int, repeats: int = 1) -> tuple[float, int]:
-    """Best wall time [s] of solving `samples` samples in-process, chunk by chunk as a run does; failed solves."""
-    ranges = chunk_ranges(samples, 1)
-    best, failed = float("inf"), 0
-    for _ in range(max(1, repeats)):
-        failed = 0
-        started = time.perf_counter()
-        for start, stop in ranges:
-            failed += int((~run_chunk(study, start, stop)["converged"]).sum())
-        best = min(best, time.perf_counter() - started)
-    return best, failed
 
 
 def run_bench(
@@ -268,14 +372,19 @@ def run_bench(
     reference_samples: int = REFERENCE_SAMPLES,
     repeats: int = 1,
     seed: int = 1,
+    latency_runs: int = 0,
 ) -> BenchResult:
-    """Warm engine run of `samples` samples and the scipy reference on the first `reference_samples` of them."""
+    """Warm engine run of `samples` samples, both scipy references on the first `reference_samples` of them, and
+    (latency_runs > 0) the end-to-end latency of that many fresh processes of each kind."""
+    from mcmatch.run.engine import prepare, run_chunk
+
     config = bench_config(circuit, polarity, samples, seed)
     study = prepare(config)
     n_ref = max(1, min(samples, reference_samples))
     run_chunk(study, 0, min(samples, 65536))  # warm: plan, allocator, caches
     engine_seconds, failed = time_engine(study, samples, repeats)
-    worst, failures, ref_seconds = agreement(study, n_ref)
+    worst, failures, ref_seconds = designer_agreement(study, circuit, polarity, n_ref)
+    worst_mna, failures_mna, mna_seconds = agreement(study, n_ref)
     return BenchResult(
         circuit=circuit,
         polarity=polarity,
@@ -287,12 +396,14 @@ def run_bench(
         failed_solves=failed,
         reference_failures=failures,
         peak_rss_bytes=peak_rss_bytes(),
+        reference_mna_seconds=mna_seconds,
+        max_rel_diff_mna=worst_mna,
+        reference_mna_failures=failures_mna,
+        latency=latency(latency_runs) if latency_runs > 0 else None,
     )
 
 
 def peak_rss_bytes() -> int:
     """Peak resident memory of this process so far [bytes] (Linux reports kilobytes, macOS bytes)."""
-    import sys
-
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     return int(peak if sys.platform == "darwin" else peak * 1024)

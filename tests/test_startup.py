@@ -1,0 +1,49 @@
+"""`mcmatch --help` and `--version` start without the numerical stack (issue 17: fast from the first keystroke).
+
+Common practice, no source: a command line answers its help at once; each command imports its work only when it
+runs. Checked by what the interpreter reports it imported (`python -X importtime`), not by timing.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+
+import pytest
+from conftest import ROOT
+
+#: Libraries that only a command's work may import (each costs from tens of milliseconds to a second).
+HEAVY = ("numpy", "scipy", "pandas", "pydantic", "pint", "matplotlib", "joblib", "dask", "jinja2", "tqdm")
+
+
+def imported_packages(*argv: str) -> tuple[set[str], subprocess.CompletedProcess]:
+    """Top-level packages `python -X importtime -m mcmatch ARGV` imported, and the finished process."""
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    done = subprocess.run(
+        [sys.executable, "-X", "importtime", "-m", "mcmatch", *argv], capture_output=True, text=True, env=env
+    )
+    names = set()
+    for line in done.stderr.splitlines():
+        if line.startswith("import time:") and line.count("|") == 2:
+            name = line.rsplit("|", 1)[1].strip()
+            if name != "imported package":  # the header line
+                names.add(name.split(".")[0])
+    return names, done
+
+
+@pytest.mark.parametrize("argv", [["--version"], ["--help"], ["run", "--help"], ["bench", "--help"]])
+def test_help_and_version_import_no_heavy_library(argv):
+    names, done = imported_packages(*argv)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert "mcmatch" in names  # the report is read right: our own package is listed
+    assert sorted(names & set(HEAVY)) == []
+    if argv == ["--version"]:
+        assert done.stdout.startswith("mcmatch ")
+
+
+def test_a_command_still_imports_its_work():
+    # the check above can fail: `templates` needs pydantic (its parameter models), and the report shows it
+    names, done = imported_packages("templates", "simple_mirror")
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert "pydantic" in names
