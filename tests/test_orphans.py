@@ -39,20 +39,29 @@ def shared_memory_of(pid: int) -> list[str]:
     return sorted(p.name for p in SHM.iterdir() if f"-{pid}-" in p.name or f"_{pid}_" in p.name)
 
 
+def pool_workers(pid: int, kind: str) -> list[psutil.Process]:
+    """The pool workers of process pid: its forked children, or the loky worker processes."""
+    children = psutil.Process(pid).children(recursive=True)
+    if kind == "fork":
+        return children
+    return [p for p in children if "popen_loky" in " ".join(p.cmdline())]
+
+
 @pytest.mark.slow
 @pytest.mark.skipif(sys.platform != "linux", reason="process groups and /dev/shm as on Linux")
-def test_kill_9_ends_every_worker_of_the_process_group(tmp_path):
+@pytest.mark.parametrize("kind", ["fork", "loky"])
+def test_kill_9_ends_every_worker_of_the_process_group(tmp_path, kind):
     command = [sys.executable, "-m", "mcmatch", "run", str(ROOT / "configs" / "demo.toml"), "--samples", "50000000"]
     command += ["--jobs", "2", "--quiet", "--out", str(tmp_path / "run")]
-    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    env = {**os.environ, "PYTHONPATH": str(ROOT), "MCMATCH_POOL": kind}
     proc = subprocess.Popen(command, start_new_session=True, cwd=ROOT, env=env, stderr=subprocess.PIPE)
     group = proc.pid  # a new session: the command leads its own process group, its workers join it
     try:
         deadline = time.monotonic() + 120
         workers: list[psutil.Process] = []
         while time.monotonic() < deadline and proc.poll() is None:
-            workers = [p for p in psutil.Process(proc.pid).children(recursive=True) if "loky" in " ".join(p.cmdline())]
-            if len([p for p in workers if "popen_loky" in " ".join(p.cmdline())]) >= 2:
+            workers = pool_workers(proc.pid, kind)
+            if len(workers) >= 2:
                 break
             time.sleep(0.1)
         assert proc.poll() is None, proc.stderr.read().decode()

@@ -48,12 +48,14 @@ def check_overrides(model: type[BaseModel], **values: Any) -> None:
 
 def check_jobs(jobs: int | None, cluster: bool = False) -> None:
     """--jobs: 0 (automatic), 1..C or -1..-C (C usable cores; -1 all, -2 all but one) on this machine; with a
-    cluster, 0 (one per worker thread) or a positive count."""
+    cluster, 0 (one per worker thread) or a positive count. Locally, also the pool that MCMATCH_POOL selects."""
     if cluster:
         check_integer("--jobs", jobs, 0, None, " (0: one per worker thread of the cluster)")
         return
     from mcmatch.run.engine import usable_cores
+    from mcmatch.run.pool import pool_kind
 
+    pool_kind()  # MCMATCH_POOL names a pool this machine has, or exit 2 before any work
     cores = usable_cores()
     note = f" (this machine runs {cores} at once; 0: automatic, -1: all cores, -2: all but one)"
     check_integer("--jobs", jobs, -cores, cores, note)

@@ -35,14 +35,12 @@ from mcmatch.model.circuit import (
     voltage_mask,
 )
 from mcmatch.model.technology import device_parameters
-from mcmatch.run.workers import Watched
+from mcmatch.run.pool import THRESHOLD, local_map, startup_seconds, threshold
 from mcmatch.solve.newton import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
 
-#: Below this many samples a run stays in-process: starting a pool (POOL_STARTUP_S) costs more than it saves on 2
-#: cores. Measured with the fast path: a 2-worker pool pays from about 1.5e7 simple-mirror or 1e7 cascode samples.
-POOL_THRESHOLD = 10_000_000
-#: Wall time to start a local pool of workers that import mcmatch [s] (measured: about 2 s for 2 loky workers).
-POOL_STARTUP_S = 2.0
+#: Below this many samples a run stays in-process: starting a pool costs more than it saves on 2 cores (run/pool.py:
+#: start-up and threshold per pool; forked workers pay from about 2e6 simple-mirror samples).
+POOL_THRESHOLD = THRESHOLD["fork"]
 
 #: glibc allocator settings applied by :func:`tune_allocator`: temporaries below the mmap threshold are recycled from
 #: the heap instead of being mapped and page-faulted afresh on every numpy operation (which costs more than the
@@ -833,20 +831,20 @@ def usable_cores() -> int:
 
 def pool_pays(seconds_in_process: float, jobs: int | None = None) -> bool:
     """Whether `jobs` workers (default: all cores) would finish work that takes `seconds_in_process` [s] here sooner
-    than this process alone, counting POOL_STARTUP_S to start them."""
+    than this process alone, counting the pool's start-up (run/pool.py)."""
     jobs = jobs or usable_cores()
-    return jobs > 1 and seconds_in_process * (1.0 - 1.0 / jobs) > POOL_STARTUP_S
+    return jobs > 1 and seconds_in_process * (1.0 - 1.0 / jobs) > startup_seconds()
 
 
 def resolve_jobs(jobs: int | None, samples: int, seconds_in_process: float | None = None) -> int:
     """Worker count: default all cores, but in-process where a pool does not pay: judged from the expected time in
-    process [s] when known (:func:`pool_pays`), else from the sample count (POOL_THRESHOLD)."""
+    process [s] when known (:func:`pool_pays`), else from the sample count (the pool's threshold, run/pool.py)."""
     cores = usable_cores()
     if jobs is None or jobs == 0:
         if seconds_in_process is not None:
             jobs = cores if pool_pays(seconds_in_process, cores) else 1
         else:
-            jobs = cores if samples >= POOL_THRESHOLD else 1
+            jobs = cores if samples >= threshold() else 1
     if jobs < 0:
         jobs = max(1, cores + 1 + jobs)
     return max(1, jobs)
@@ -866,11 +864,12 @@ def map_chunks(
         for start, stop in ranges:
             yield task(study, start, stop)
         return
+    if backend is None:  # local workers (forked, or loky by MCMATCH_POOL) that end when this process dies
+        yield from local_map(task, study, ranges, jobs)
+        return
     from joblib import Parallel, delayed, parallel_config
 
-    if backend is None:  # local workers end when this process dies (kill -9 included)
-        task = Watched(task, os.getpid())
-    with parallel_config(backend=backend or "loky", n_jobs=jobs):
+    with parallel_config(backend=backend, n_jobs=jobs):
         parallel = Parallel(return_as="generator")
         yield from parallel(delayed(task)(study, start, stop) for start, stop in ranges)
 

@@ -1,0 +1,131 @@
+"""Local worker pools (run/pool.py): forked workers by default, loky by MCMATCH_POOL; same numbers either way.
+
+Common practice, no source: a pool changes how fast, never what is computed; Ctrl-C belongs to the parent; a map
+left early ends the workers it started; an unknown setting is refused before any work.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import sys
+import time
+
+import pytest
+from conftest import ROOT, snapshot
+
+from mcmatch.cli import main
+from mcmatch.draws.mismatch import BLOCK
+from mcmatch.results.tables import read_samples
+from mcmatch.run import pool
+from mcmatch.run.engine import map_chunks, prepare, run_chunk
+
+pytestmark = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the fork pool is the Linux default")
+
+DEMO = ROOT / "configs" / "demo.toml"
+THROUGHPUT = ROOT / "configs" / "throughput.toml"  # the demo mirror without analyses: the main run alone
+
+
+def _numbers(folder):
+    summary = json.loads((folder / "summary.json").read_text())
+    return {k: summary[k] for k in ("samples", "failed_solves", "measures", "yield")}, read_samples(
+        folder / "samples.csv"
+    )
+
+
+def test_same_seed_same_numbers_with_one_or_two_workers_and_either_pool(tmp_path, monkeypatch):
+    # Common practice, no source (DESIGN.md section 3): same seed, same numbers whatever the workers or backend;
+    # the streamed statistics (histogram quantiles, keep < samples) and the kept rows alike.
+    args = [
+        "run",
+        str(THROUGHPUT),
+        "--samples",
+        str(3 * BLOCK + 1000),
+        "--seed",
+        "9",
+        "--keep-samples",
+        "500",
+        "--quiet",
+    ]
+    args += ["--no-report"]
+    assert main([*args, "--jobs", "1", "--out", str(tmp_path / "one")]) == 0
+    monkeypatch.setenv("MCMATCH_POOL", "fork")
+    assert main([*args, "--jobs", "2", "--out", str(tmp_path / "fork")]) == 0
+    monkeypatch.setenv("MCMATCH_POOL", "loky")
+    assert main([*args, "--jobs", "2", "--out", str(tmp_path / "loky")]) == 0
+    one, one_rows = _numbers(tmp_path / "one")
+    for other in ("fork", "loky"):
+        numbers, rows = _numbers(tmp_path / other)
+        assert numbers == one
+        assert rows.equals(one_rows)
+
+
+def test_an_unknown_pool_is_refused_before_any_work(demo_project, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("MCMATCH_POOL", "threads")
+    before = snapshot(tmp_path)
+    assert main(["run", str(demo_project), "--out", str(tmp_path / "r"), "--samples", "20", "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "MCMATCH_POOL" in err and "'threads'" in err and "'fork'" in err and "'loky'" in err
+    assert "Traceback" not in err
+    assert snapshot(tmp_path) == before
+
+
+@pytest.fixture
+def study():
+    from mcmatch.config.schema import load_config
+
+    return prepare(load_config(DEMO))
+
+
+def _workers() -> list:
+    return [p for p in (getattr(pool._pool.get("executor"), "_processes", None) or {}).values()]
+
+
+def test_fork_workers_ignore_ctrl_c_and_the_pool_is_kept(study, monkeypatch):
+    monkeypatch.setenv("MCMATCH_POOL", "fork")
+    ranges = [(0, 1000), (1000, 2000), (2000, 3000)]
+    first = list(map_chunks(study, ranges, 2))
+    workers = _workers()
+    assert len(workers) == 2
+    for process in workers:
+        os.kill(process.pid, signal.SIGINT)  # what Ctrl-C sends to the whole foreground process group
+    time.sleep(0.2)
+    assert all(p.is_alive() for p in workers)
+    again = list(map_chunks(study, ranges, 2))
+    assert _workers() == workers  # the same workers served the second map
+    for a, b in zip(first, again, strict=True):
+        assert (a["sample"] == b["sample"]).all() and (a["gain_error"] == b["gain_error"]).all()
+    pool.shutdown()
+    assert not any(p.is_alive() for p in workers)
+
+
+def _slow_chunk(study, start, stop):
+    time.sleep(0.5)
+    return run_chunk(study, start, stop)
+
+
+def test_a_map_left_early_ends_its_workers(study, monkeypatch):
+    monkeypatch.setenv("MCMATCH_POOL", "fork")
+    parts = map_chunks(study, [(i * 100, (i + 1) * 100) for i in range(8)], 2, task=_slow_chunk)
+    assert len(next(parts)["sample"]) == 100
+    workers = _workers()
+    parts.close()  # the consumer stops: chunks still in flight are not wanted
+    deadline = time.monotonic() + 10
+    while any(p.is_alive() for p in workers) and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert workers and not any(p.is_alive() for p in workers)
+    assert len(list(map_chunks(study, [(0, 100), (100, 200)], 2))) == 2  # a fresh pool serves the next map
+
+
+def _failing_chunk(study, start, stop):
+    if start >= 200:
+        raise ValueError(f"chunk {start} failed")
+    return run_chunk(study, start, stop)
+
+
+def test_a_failure_in_a_worker_reaches_the_caller(study, monkeypatch):
+    monkeypatch.setenv("MCMATCH_POOL", "fork")
+    with pytest.raises(ValueError, match="chunk 200 failed"):
+        list(map_chunks(study, [(0, 100), (100, 200), (200, 300)], 2, task=_failing_chunk))
+    assert len(list(map_chunks(study, [(0, 100), (100, 200)], 2))) == 2
