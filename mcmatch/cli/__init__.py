@@ -11,7 +11,6 @@ import argparse
 import importlib
 import sys
 import time
-import traceback
 from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any, TextIO
@@ -108,6 +107,8 @@ def _main(argv: list[str] | None) -> int:
         except BrokenPipeError:
             return 1
         except Exception as exc:  # an internal error: say so, with the traceback for a bug report
+            import traceback
+
             traceback.print_exc(file=sys.stderr)
             print(f"mcmatch: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
             return 1

@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import tomllib
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -231,6 +230,8 @@ def execute(args: argparse.Namespace) -> int:
         raise ConfigError("the file exists; choose another --out or add --force", str(out), "--out")
     text = starter_config(args.template, args.type, args.technology, folder, args.expanded)
     # the starter must run as written: validate it where it will live before writing anything
+    import tomllib
+
     config_from_dict(tomllib.loads(text), (folder / (out.name if out else "starter.toml")), text)
     if out is None:
         sys.stdout.write(text)

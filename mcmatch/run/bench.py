@@ -16,10 +16,7 @@ imported inside the functions that use them.
 from __future__ import annotations
 
 import resource
-import statistics
-import subprocess
 import sys
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -267,6 +264,8 @@ def time_engine(study: Study, samples: int, repeats: int = 1) -> tuple[float, in
 
 def _timed(command: list[str]) -> float:
     """Wall time [s] of one fresh process; RuntimeError (with its stderr) if it fails."""
+    import subprocess
+
     started = time.perf_counter()
     done = subprocess.run(command, capture_output=True, text=True, check=False)
     seconds = time.perf_counter() - started
@@ -278,6 +277,9 @@ def _timed(command: list[str]) -> float:
 def latency(runs: int = LATENCY_RUNS, config: Path = DEMO_CONFIG) -> dict:
     """End-to-end latency of fresh processes, median of `runs` each [s]: ``mcmatch --version`` and
     ``mcmatch run CONFIG --quiet --out TMP`` (summary, samples and report written), taken in turn."""
+    import statistics
+    import tempfile
+
     command = [sys.executable, "-m", "mcmatch"]
     version, run = [], []
     with tempfile.TemporaryDirectory(prefix="mcmatch-bench-") as tmp:
