@@ -79,30 +79,30 @@ def study():
 
 
 def _workers() -> list:
-    return [p for p in (getattr(pool._pool.get("executor"), "_processes", None) or {}).values()]
-
-
-def test_fork_workers_ignore_ctrl_c_and_the_pool_is_kept(study, monkeypatch):
-    monkeypatch.setenv("MCMATCH_POOL", "fork")
-    ranges = [(0, 1000), (1000, 2000), (2000, 3000)]
-    first = list(map_chunks(study, ranges, 2))
-    workers = _workers()
-    assert len(workers) == 2
-    for process in workers:
-        os.kill(process.pid, signal.SIGINT)  # what Ctrl-C sends to the whole foreground process group
-    time.sleep(0.2)
-    assert all(p.is_alive() for p in workers)
-    again = list(map_chunks(study, ranges, 2))
-    assert _workers() == workers  # the same workers served the second map
-    for a, b in zip(first, again, strict=True):
-        assert (a["sample"] == b["sample"]).all() and (a["gain_error"] == b["gain_error"]).all()
-    pool.shutdown()
-    assert not any(p.is_alive() for p in workers)
+    """The worker processes of the fork pools running now."""
+    return [p for executor, _ in pool._running.values() for p in (getattr(executor, "_processes", None) or {}).values()]
 
 
 def _slow_chunk(study, start, stop):
     time.sleep(0.5)
     return run_chunk(study, start, stop)
+
+
+def test_fork_workers_ignore_ctrl_c_and_end_with_their_map(study, monkeypatch):
+    monkeypatch.setenv("MCMATCH_POOL", "fork")
+    ranges = [(i * 100, (i + 1) * 100) for i in range(4)]
+    parts = map_chunks(study, ranges, 2, task=_slow_chunk)
+    first = next(parts)
+    workers = _workers()
+    assert len(workers) == 2
+    for process in workers:
+        os.kill(process.pid, signal.SIGINT)  # what Ctrl-C sends to the whole foreground process group
+    rest = list(parts)  # the workers carried on
+    assert [int(p["sample"][0]) for p in [first, *rest]] == [0, 100, 200, 300]
+    alone = list(map_chunks(study, ranges, 1))  # the same numbers in one process
+    for a, b in zip([first, *rest], alone, strict=True):
+        assert (a["gain_error"] == b["gain_error"]).all()
+    assert not any(p.is_alive() for p in workers)  # the map's end shut its pool down
 
 
 def test_a_map_left_early_ends_its_workers(study, monkeypatch):

@@ -2,8 +2,9 @@
 
 A forked worker inherits the parent's memory, so the numerical core it needs is already imported: a 2-worker pool
 starts in about 0.1 s instead of the 2-4 s of loky workers that import the whole stack afresh. That lets two cores
-pay from a few million samples. The pool is kept for the rest of the process (corners and area points reuse it) and
-shut down at exit. Its workers ignore SIGINT (Ctrl-C reaches the whole foreground process group; the parent alone
+pay from a few million samples. Each map forks its own workers and shuts them down when it ends: they carry the
+parent's state of that moment, never an earlier one (a pool kept from before would run functions replaced since).
+Its workers ignore SIGINT (Ctrl-C reaches the whole foreground process group; the parent alone
 decides), take SIGTERM's default action, and end within :data:`mcmatch.run.workers.POLL_S` of their parent's death
 (``kill -9`` included). A map left early (an exception, a signal, a generator closed) ends the workers at once: a
 chunk in flight is never left computing for nobody.
@@ -36,7 +37,7 @@ POOL_ENV = "MCMATCH_POOL"
 #: Pools a user may select.
 POOLS = ("fork", "loky")
 #: Wall time to start a 2-worker pool and return its first results [s] (measured on the 2-core development machine:
-#: fork 0.02-0.05 s, rounded up for a loaded machine; loky about 2 s, its workers import mcmatch).
+#: fork 0.04-0.09 s at load 8, rounded up; loky 2-3 s, its workers import mcmatch afresh).
 STARTUP_S = {"fork": 0.15, "loky": 2.0}
 #: Samples from which a pool of all cores is started when the run's own time is not known in advance: where it
 #: saves more than STARTUP_S on 2 cores (a simple mirror solves about 5e6 samples/s per core; 2e6 samples save about
@@ -46,7 +47,7 @@ THRESHOLD = {"fork": 2_000_000, "loky": 10_000_000}
 #: bounded by a few chunks.
 IN_FLIGHT_PER_WORKER = 2
 
-_pool: dict[str, Any] = {}  # the kept fork pool: {"executor": ProcessPoolExecutor, "workers": n, "parent": pid}
+_running: dict[int, tuple[ProcessPoolExecutor, int]] = {}  # fork pools not shut down yet: id -> (pool, parent pid)
 
 
 def pool_kind() -> str:
@@ -101,34 +102,32 @@ def _worker_start(parent: int) -> None:
 
 
 def fork_pool(jobs: int) -> ProcessPoolExecutor:
-    """The kept pool of `jobs` forked workers, started (or restarted for another size or in a forked child) now."""
-    if _pool and (_pool["workers"] != jobs or _pool["parent"] != os.getpid()):
-        shutdown()  # idle workers: they exit at once, before the new ones are forked
-    if not _pool:
-        context = multiprocessing.get_context("fork")
-        executor = ProcessPoolExecutor(jobs, mp_context=context, initializer=_worker_start, initargs=(os.getpid(),))
-        _pool.update(executor=executor, workers=jobs, parent=os.getpid())
-    return _pool["executor"]
+    """A new pool of `jobs` workers, forked from this process now; :func:`shutdown` ends it."""
+    context = multiprocessing.get_context("fork")
+    executor = ProcessPoolExecutor(jobs, mp_context=context, initializer=_worker_start, initargs=(os.getpid(),))
+    _running[id(executor)] = (executor, os.getpid())
+    return executor
 
 
-def shutdown(kill: bool = False) -> None:
-    """Stop the kept fork pool, if any: its workers finish their chunk and exit, or (kill) are ended at once."""
-    if not _pool:
-        return
-    executor: ProcessPoolExecutor = _pool.pop("executor")
-    parent = _pool.pop("parent")
-    _pool.clear()
-    if parent != os.getpid():  # inherited by a fork: the pool belongs to another process
-        return
-    if kill:
-        processes = getattr(executor, "_processes", None) or {}  # no public way before Python 3.14
-        for process in list(processes.values()):
-            if process.is_alive():
-                process.kill()
-    executor.shutdown(wait=not kill, cancel_futures=True)
+def shutdown(executor: ProcessPoolExecutor | None = None, kill: bool = False) -> None:
+    """Stop a fork pool (default: every one still running): its workers finish their chunk and exit, or (kill) are
+    ended at once."""
+    chosen = list(_running) if executor is None else [id(executor)]
+    for key in chosen:
+        if key not in _running:
+            continue
+        pool, parent = _running.pop(key)
+        if parent != os.getpid():  # inherited by a fork: the pool belongs to another process
+            continue
+        if kill:
+            processes = getattr(pool, "_processes", None) or {}  # no public way before Python 3.14
+            for process in list(processes.values()):
+                if process.is_alive():
+                    process.kill()
+        pool.shutdown(wait=not kill, cancel_futures=True)
 
 
-atexit.register(shutdown)
+atexit.register(shutdown, kill=True)  # a map never finished nor closed (its generator dropped unfinished)
 
 
 def _fork_map(task: Callable[..., Any], study: Any, ranges: list[tuple[int, int]], jobs: int) -> Iterator[Any]:
@@ -152,4 +151,4 @@ def _fork_map(task: Callable[..., Any], study: Any, ranges: list[tuple[int, int]
         if not finished:  # left early: nobody wants the chunks in flight
             for future in pending:
                 future.cancel()
-            shutdown(kill=True)
+        shutdown(executor, kill=not finished)
