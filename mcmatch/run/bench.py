@@ -385,6 +385,8 @@ def run_bench(
     n_ref = max(1, min(samples, reference_samples))
     run_chunk(study, 0, min(samples, 65536))  # warm: plan, allocator, caches
     engine_seconds, failed = time_engine(study, samples, repeats)
+    designer_run(study, circuit, polarity, 0, 1)  # warm the references too: imports and scipy's first call untimed
+    reference_run(study, 0, 1)
     worst, failures, ref_seconds = designer_agreement(study, circuit, polarity, n_ref)
     worst_mna, failures_mna, mna_seconds = agreement(study, n_ref)
     return BenchResult(
