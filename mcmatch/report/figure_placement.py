@@ -19,21 +19,10 @@ from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.patches import Rectangle  # noqa: E402
 
 from mcmatch.draws.placement import cell_layout  # noqa: E402
+from mcmatch.report.placement_grid import CELL_FILL, DEVICE_STYLE, DUMMY_STYLE  # noqa: E402 - one palette
 
 INK = "#1d2b3a"
 SLATE = "#5a6b7d"
-#: (fill, hatch, centroid marker) per device, in letter order.
-DEVICE_STYLE = (
-    ("#7c99b4", "////", "o"),
-    ("#e3c58f", "....", "X"),
-    ("#a9c8a0", "\\\\\\\\", "D"),
-    ("#d4a5a5", "xx", "^"),
-    ("#b9b0d6", "--", "s"),
-    ("#c9d6df", "++", "v"),
-)
-DUMMY_STYLE = ("#eeeeee", "", None)
-#: Cell drawn as this fraction of the pitch, leaving a gap between neighbours.
-CELL_FILL = 0.86
 MICRON = 1e6
 
 

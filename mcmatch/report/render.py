@@ -18,14 +18,17 @@ from datetime import datetime
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
+from statistics import NormalDist
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 from jinja2 import Environment, PackageLoader, StrictUndefined
 from markupsafe import Markup
-from scipy import stats
 
 from mcmatch.errors import ConfigError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 #: Reference yield when a summary carries no target: +-3 sigma of a normal distribution, two-sided [1].
 DEFAULT_TARGET = 0.9973
@@ -129,7 +132,7 @@ def sigma_equivalent(fraction: object) -> str:
         return "\u2013"
     if v >= 1:
         return "no failing sample"
-    return f"\u00b1{stats.norm.ppf(0.5 + v / 2):.2f} sigma"
+    return f"\u00b1{NormalDist().inv_cdf(0.5 + v / 2):.2f} sigma"
 
 
 def limits_text(limits: Mapping | None, unit: str) -> str:
@@ -889,8 +892,9 @@ def _tail(mean: object, std: object, lim: Mapping) -> float | None:
     mu, sd = _finite(mean), _finite(std)
     if mu is None or not sd:
         return None
-    p = stats.norm.sf((lim["max"] - mu) / sd) if lim.get("max") is not None else 0.0
-    p += stats.norm.cdf((lim["min"] - mu) / sd) if lim.get("min") is not None else 0.0
+    normal = NormalDist(mu, sd)
+    p = 1.0 - normal.cdf(lim["max"]) if lim.get("max") is not None else 0.0
+    p += normal.cdf(lim["min"]) if lim.get("min") is not None else 0.0
     return float(p)
 
 
@@ -953,11 +957,15 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             values = [(c.get("measures") or {}).get(m, {}).get("mean") for c in corners if "error" not in c]
             scale, label = display_scale(values, unit)
             ax = plots.corner_spread(
-                corners[:MAX_CORNER_ROWS], measure=m, limits=specs.get(m), worst=worst.get(m), scale=scale, unit=label
+                corners, measure=m, limits=specs.get(m), worst=worst.get(m), scale=scale, unit=label
+            )
+            w = worst.get(m)
+            ax.title = f"corner spread of {m}: mean \u00b1 3 sigma at {len(corners)} corners" + (
+                f"; worst {_corner_label(corners[w])}" if w is not None else ""
             )
             figs.append(
                 {
-                    "uri": plots.data_uri(ax),
+                    "svg": ax.svg(),
                     "alt": f"corner spread of {m}",
                     "cls": "fig-corners",
                     "caption": f"{m} at every corner: mean (dot) and mean \u00b1 3 sigma (bar); the worst corner is "
@@ -998,9 +1006,13 @@ def area_section(summary: dict, key_measures: list[str], figures: bool) -> dict 
             scale, label = display_scale(values, unit)
             ax = plots.area_sigma(area, measure=m, scale=scale, unit=label, title=m)
             fit = fits[m]
+            low = (minimum.get(m) or {}) if isinstance(minimum.get(m), Mapping) else {}
+            ax.title = f"sigma of {m} against gate area: k = {_k_text(fit.get('k'), unit)}" + (
+                f"; minimum area {fixed(low.get('area'), 1e12, chr(181) + 'm' + chr(178))}" if low.get("area") else ""
+            )
             figs.append(
                 {
-                    "uri": plots.data_uri(ax),
+                    "svg": ax.svg(),
                     "alt": f"sigma of {m} against gate area",
                     "cls": "fig-area",
                     "caption": f"{m}: sigma against the summed gate area of {', '.join(area.get('devices', []))} "
@@ -1146,8 +1158,12 @@ def contributions_section(summary: dict, figures: bool, keys: list[str] | None =
                 from mcmatch.report import figures as plots
 
                 ax = plots.contributions(terms)
+                ax.title = f"variance shares of {name}: " + ", ".join(
+                    f"{t.get('device')} {t.get('parameter')} {percent(t.get('share'), 3)}"
+                    for t in plots.fold_terms(terms)
+                )
                 item["figure"] = {
-                    "uri": plots.data_uri(ax),
+                    "svg": ax.svg(),
                     "alt": f"variance shares of {name}",
                     "cls": "fig-contrib",
                     "caption": "",
@@ -1202,14 +1218,13 @@ def placement_drawing(summary: dict) -> dict | None:
     placements = summary.get("placements")
     if not isinstance(placements, list) or not placements:
         return None
-    from mcmatch.report.figure_placement import placement_figure
-    from mcmatch.report import figures as plots
+    from mcmatch.report.placement_grid import placement_drawing_svg
 
     try:
-        figure = placement_figure(placements)
+        svg = placement_drawing_svg(placements)
     except (KeyError, TypeError, ValueError):  # a summary from another version: the table still stands
         return None
-    return {"uri": plots.data_uri(figure), "alt": "unit-cell drawing of every placement candidate", "cls": "fig-wide"}
+    return {"svg": svg, "alt": "unit-cell drawing of every placement candidate", "cls": "fig-wide"}
 
 
 def placements_table(summary: dict, key_measures: list[str]) -> dict | None:
@@ -1407,7 +1422,12 @@ def distributions(summary: dict, samples: pd.DataFrame | None, keys: list[str]) 
     for name, m in (summary.get("measures") or {}).items():
         if name not in samples:
             continue
-        values = pd.to_numeric(samples[name], errors="coerce").to_numpy(dtype=float)
+        column = samples[name]
+        if column.dtype.kind not in "fiub":  # text in a numeric column: read what parses
+            import pandas as pd
+
+            column = pd.to_numeric(column, errors="coerce")
+        values = column.to_numpy(dtype=float)
         if converged is not None:
             values = values[converged]
         values = values[np.isfinite(values)]
@@ -1427,9 +1447,14 @@ def distributions(summary: dict, samples: pd.DataFrame | None, keys: list[str]) 
             title=name,
             legend="right" if name in keys else "inside",
         )
+        ax.title = (
+            f"histogram of {name}: {values.size:,} samples, mean {eng(m.get('mean'), unit)}, sigma "
+            f"{eng(m.get('std'), unit)}, nominal {eng(m.get('nominal'), unit)}"
+            + (f", spec {limits_text(specs[name], unit)}" if name in specs else "")
+        )
         item = {
             "name": name,
-            "hist": {"uri": plots.data_uri(ax), "alt": f"histogram of {name}", "cls": "fig-hist"},
+            "hist": {"svg": ax.svg(), "alt": f"histogram of {name}", "cls": "fig-hist"},
             "prob": None,
             "caption": (
                 f"{name}: {values.size:,} samples shown"
@@ -1442,8 +1467,12 @@ def distributions(summary: dict, samples: pd.DataFrame | None, keys: list[str]) 
         }
         if name in keys:
             ax = plots.probability_plot(values, limits=specs.get(name), scale=scale, unit=label)
+            ax.title = (
+                f"normal probability plot of {name}: samples from {eng(values.min(), unit)} to "
+                f"{eng(values.max(), unit)} against normal quantiles"
+            )
             item["prob"] = {
-                "uri": plots.data_uri(ax),
+                "svg": ax.svg(),
                 "alt": f"normal probability plot of {name}",
                 "cls": "fig-probplot",
             }
@@ -1489,13 +1518,10 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
     config = _parse_config(config_text)
     keys = key_measures(summary)
     if figures:
-        from mcmatch.report import figures as plots
-
-        with plots.style():
-            dist = distributions(summary, table, keys)
-            corners = corners_section(summary, keys, figures)
-            area = area_section(summary, keys, figures)
-            contrib = contributions_section(summary, figures, keys)
+        dist = distributions(summary, table, keys)
+        corners = corners_section(summary, keys, figures)
+        area = area_section(summary, keys, figures)
+        contrib = contributions_section(summary, figures, keys)
     else:
         dist = []
         corners = corners_section(summary, keys, False)
