@@ -4,12 +4,10 @@ until here; nothing else in the report converts units."""
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from statistics import NormalDist
 
 SI_PREFIXES = {-15: "f", -12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "", 3: "k", 6: "M", 9: "G"}
-
-
 UNIT_SYMBOLS = {"ohm": "\u03a9", "A/V^2": "A/V\u00b2", "V^0.5": "V^\u00bd"}
 
 
@@ -99,16 +97,18 @@ def sigma_equivalent(fraction: object) -> str:
     return f"\u00b1{NormalDist().inv_cdf(0.5 + v / 2):.2f} sigma"
 
 
-def limits_text(limits: Mapping | None, unit: str) -> str:
+def limits_text(limits: Mapping | None, unit: str, shown: Callable[[object], str] | None = None) -> str:
+    """A spec's limits [SI `unit`]: "-2 % … 6 %", "≥ 38 µA"; `shown` formats each value (default :func:`eng`)."""
     if not limits:
         return "\u2013"
+    show = shown or (lambda v: eng(v, unit))
     lo, hi = limits.get("min"), limits.get("max")
     if lo is not None and hi is not None:
-        return f"{eng(lo, unit)} \u2026 {eng(hi, unit)}"
+        return f"{show(lo)} \u2026 {show(hi)}"
     if lo is not None:
-        return f"\u2265 {eng(lo, unit)}"
+        return f"\u2265 {show(lo)}"
     if hi is not None:
-        return f"\u2264 {eng(hi, unit)}"
+        return f"\u2264 {show(hi)}"
     return "\u2013"
 
 
@@ -122,3 +122,59 @@ def display_scale(values: Iterable[object], unit: str) -> tuple[float, str]:
         return 1.0, symbol
     exp = max(-15, min(9, 3 * math.floor(math.log10(max(magnitudes)) / 3)))
     return 10.0**-exp, f"{SI_PREFIXES[exp]}{symbol}"
+
+
+def significant(x: float, digits: int = 4) -> str:
+    """`x` to `digits` significant digits in fixed-point notation, never an exponent: 0.0005166 -> "0.0005166"."""
+    if x == 0 or not math.isfinite(x):
+        return "0" if x == 0 else "\u2013"
+    decimals = max(0, min(15, digits - 1 - math.floor(math.log10(abs(x)))))
+    text = f"{x:.{decimals}f}"
+    if "." in text:
+        text = text.rstrip("0").rstrip(".")
+    return "0" if float(text) == 0 else text
+
+
+class DisplayUnit:
+    """One display unit for a group of values of one measure (a table row or column): every value in it is shown
+    with the same prefix, so -3.1e-6 and 5.2e-5 of a fraction read "-0.0003125 %" and "0.005166 %", never ppm beside
+    percent. Built from the SI values it must show; unit "1" always shows percent."""
+
+    def __init__(self, values: Iterable[object], unit: str) -> None:
+        self.factor, self.label = display_scale(values, unit)
+
+    def __call__(self, value: object, digits: int = 4, with_unit: bool = True) -> str:
+        v = finite(value)
+        if v is None:
+            return "\u2013"
+        text = significant(v * self.factor, digits)
+        return f"{text} {self.label}".strip() if with_unit else text
+
+    def header(self, text: str) -> str:
+        """A column heading with the unit: "i_out mean [µA]"."""
+        return f"{text} [{self.label}]" if self.label else text
+
+
+def zero_failure_text(total: object, ci95: object) -> str | None:
+    """With no failed sample: "0 of 20,000 failed; failure rate below 0.0184 % (95 %, two-sided Clopper-Pearson)".
+
+    The bound is 1 - the lower end of the summary's two-sided 95 % Clopper-Pearson interval (computed at run time by
+    mcmatch.stats.yields); for zero failures that is 1 - 0.025^(1/N). None when the numbers are missing.
+    """
+    n, lo = finite(total), finite(ci95[0]) if isinstance(ci95, (list, tuple)) and ci95 else None
+    if not n or lo is None:
+        return None
+    return f"0 of {int(n):,} failed; failure rate below {percent(1.0 - lo, 3)} (95 %, two-sided Clopper-Pearson)"
+
+
+def yield_cells(block: object) -> tuple[str, str]:
+    """(yield, 95 % interval) texts of a yield block; with no failed sample ("0 of 2,000 failed", "failure rate below
+    0.184 % (95 %, two-sided)") instead of a yield of "100.0 %"."""
+    if not isinstance(block, Mapping):
+        return yield_text(block), "\u2013"
+    total, passed = block.get("total"), block.get("passed")
+    zero = zero_failure_text(total, block.get("ci95")) if total and passed == total else None
+    if zero:
+        head, tail = zero.split("; ", 1)
+        return head, tail.replace(" Clopper-Pearson", "")
+    return yield_text(block.get("fraction")), interval_text(block.get("ci95"))

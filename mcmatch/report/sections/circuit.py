@@ -75,18 +75,25 @@ def circuit_section(summary: dict, config: Mapping) -> dict | None:
             ]
             tables.append(table(["name", *keys, ("value", "num")], rows, ELEMENT_TITLES.get(kind, kind), "compact"))
     measures = []
-    for name, definition in (config.get("measures") or {}).items():
+    defined = config.get("measures") if isinstance(config.get("measures"), Mapping) else {}
+    circuit_cfg = config.get("circuit") if isinstance(config.get("circuit"), Mapping) else {}
+    names = list(dict.fromkeys([*defined, *(summary.get("measures") or {})]))
+    for name in names:
+        unit = ((summary.get("measures") or {}).get(name) or {}).get("unit", "")
+        definition = defined.get(name)
         if isinstance(definition, Mapping):
-            text = "; ".join(
-                f"{k} = {v if not isinstance(v, list) else ' / '.join(map(str, v))}" for k, v in definition.items()
-            )
-            unit = summary.get("measures", {}).get(name, {}).get("unit", "")
-            measures.append(
-                row([cell(name, "name"), text, UNIT_SYMBOLS.get(unit, unit) if unit != "1" else "1 (shown in %)"])
-            )
+            text, meaning = measure_definition(name, definition)
+        elif circuit_cfg.get("template"):
+            text, meaning = f"{name}: set by the circuit template '{circuit_cfg['template']}'", ""
+        else:
+            text, meaning = f"{name}: not defined in the config text of this run", ""
+        shown = UNIT_SYMBOLS.get(unit, unit) if unit != "1" else "1 (shown in %)"
+        measures.append(row([cell(name, "name"), text, meaning, shown]))
     return {
         "tables": tables,
-        "measures": table(["measure", "definition", "unit"], measures, "Measures recorded for every sample", "compact")
+        "measures": table(
+            ["measure", "definition", "meaning", "unit"], measures, "Measures recorded for every sample", "compact"
+        )
         if measures
         else None,
         "technology": technology_table(tech) if tech else None,
@@ -157,3 +164,30 @@ def corner_definition_table(tech: Mapping) -> dict | None:
         rows,
         "Global process corners (tt is the unshifted technology)",
     )
+
+
+def measure_definition(name: str, definition: Mapping) -> tuple[str, str]:
+    """(formula, meaning) of a measure from its config table: ratio ["MOUT1", "IREF"], ideal 2 ->
+    ("err1 = I(MOUT1) / (2 × I(IREF)) − 1", "relative error of the current ratio"). Element currents follow the
+    sign conventions of DESIGN.md section 3."""
+    if isinstance(definition.get("ratio"), (list, tuple)) and len(definition["ratio"]) == 2:
+        a, b = definition["ratio"]
+        ideal = definition.get("ideal", 1)
+        scaled = f"({plain(ideal)} \u00d7 I({b}))" if ideal not in (1, 1.0) else f"I({b})"
+        return f"{name} = I({a}) / {scaled} \u2212 1", "relative error of the current ratio"
+    if definition.get("current") is not None:
+        return f"{name} = I({definition['current']})", "current of the element, positive in normal conduction"
+    if definition.get("voltage") is not None:
+        return f"{name} = V({definition['voltage']})", "node voltage to gnd"
+    if definition.get("resistance") is not None:
+        return f"{name} = dV/dI at {definition['resistance']}", "small-signal resistance from the node to gnd"
+    if definition.get("port_resistance") is not None:
+        source = definition["port_resistance"]
+        return (
+            f"{name} = dV/dI seen by {source}",
+            "small-signal resistance looking into the circuit from the source (other sources shorted/open)",
+        )
+    text = "; ".join(
+        f"{k} = {v if not isinstance(v, list) else ' / '.join(map(str, v))}" for k, v in definition.items()
+    )
+    return f"{name}: {text}", ""

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import celsius, display_scale, eng, interval_text, yield_text
+from mcmatch.report.format import DisplayUnit, celsius, eng, finite, percent, yield_cells
 from mcmatch.report.tables import cell, num, row, status_cell, table
 from mcmatch.report.targets import corner_label, judge, spec_unit, target_of, worst_indices
 
@@ -23,15 +23,21 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
     for name, i in worst.items():
         worst_of.setdefault(i, []).append(name)
     shown = [m for m in key_measures if any(m in (c.get("measures") or {}) for c in corners)]
+    units = {m: DisplayUnit(_values(corners, m), spec_unit(summary, m)) for m in shown}
     columns: list[str | tuple[str, str]] = ["process", ("temperature", "num"), ("supply", "num")]
     for m in shown:
-        columns += [(f"{m} mean", "num"), (f"{m} sigma", "num")]
+        columns += [(units[m].header(f"{m} mean"), "num"), (units[m].header(f"{m} sigma"), "num")]
     has_yield = bool(specs) and any("yield" in c for c in corners)
     if has_yield:
         columns += [("yield", "num"), ("95 % interval", "num"), "status"]
     show_failed = any(c.get("failed_solves") for c in corners)
     if show_failed:
         columns.append(("failed solves", "num"))
+    headrooms = [(c.get("compliance") or {}).get("min_headroom") for c in corners if isinstance(c, Mapping)]
+    show_headroom = any(isinstance(c.get("compliance"), Mapping) for c in corners)
+    volts = DisplayUnit(headrooms, "V")
+    if show_headroom:
+        columns.append(("min headroom (device, samples out of saturation)", "num"))
     columns.append("note")
     rows = []
     for i, c in enumerate(corners):
@@ -43,22 +49,26 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
         if "error" in c:
             cells += [cell("", "")] * (2 * len(shown) + (3 if has_yield else 0))
             cells += [num("\u2013")] if show_failed else []
+            cells += [num("\u2013")] if show_headroom else []
             cells.append(cell(f"FAILS: no operating point ({c['error']})", "status status-fail"))
             rows.append(row(cells, "error"))
             continue
         for m in shown:
             stats_m = (c.get("measures") or {}).get(m, {})
-            unit = spec_unit(summary, m)
-            cells += [num(eng(stats_m.get("mean"), unit)), num(eng(stats_m.get("std"), unit))]
+            cells += [
+                num(units[m](stats_m.get("mean"), with_unit=False)),
+                num(units[m](stats_m.get("std"), with_unit=False)),
+            ]
         if has_yield:
             y = c.get("yield") or {}
             cells += [
-                num(yield_text(y.get("fraction"))),
-                num(interval_text(y.get("ci95"))),
+                *(num(text) for text in yield_cells(y)),
                 status_cell(judge(y, target)),
             ]
         if show_failed:
             cells.append(num(f"{c.get('failed_solves', 0):,}"))
+        if show_headroom:
+            cells.append(_headroom_cell(c.get("compliance"), volts))
         note = f"\u25c0 worst: {', '.join(worst_of[i])}" if i in worst_of else ""
         cells.append(cell(note, "worst-note" if note else ""))
         rows.append(row(cells, "worst" if i in worst_of else ""))
@@ -67,11 +77,8 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
         from mcmatch.report import figures as plots
 
         for m in shown[:2]:
-            unit = spec_unit(summary, m)
-            values = [(c.get("measures") or {}).get(m, {}).get("mean") for c in corners if "error" not in c]
-            scale, label = display_scale(values, unit)
             ax = plots.corner_spread(
-                corners, measure=m, limits=specs.get(m), worst=worst.get(m), scale=scale, unit=label
+                corners, measure=m, limits=specs.get(m), worst=worst.get(m), scale=units[m].factor, unit=units[m].label
             )
             w = worst.get(m)
             ax.title = f"corner spread of {m}: mean \u00b1 3 sigma at {len(corners)} corners" + (
@@ -99,3 +106,27 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             }
         ),
     }
+
+
+def _values(corners: list, measure: str) -> list:
+    """Every mean and sigma of `measure` over the corners [SI], for choosing one display unit."""
+    out = []
+    for c in corners:
+        m = (c.get("measures") or {}).get(measure) if isinstance(c, Mapping) else None
+        if isinstance(m, Mapping):
+            out += [m.get("mean"), m.get("std")]
+    return out
+
+
+def _headroom_cell(comp: object, volts: DisplayUnit) -> dict:
+    """The corner's compliance block (min_headroom [V], limiting_device, samples_out_of_saturation [1]) in one cell."""
+    if not isinstance(comp, Mapping):
+        return num("\u2013")
+    text = volts(comp.get("min_headroom"), 3)
+    if comp.get("limiting_device"):
+        text += f" ({comp['limiting_device']})"
+    share = finite(comp.get("samples_out_of_saturation"))
+    if share:
+        text += f", {percent(share, 3)} out of saturation"
+    h = finite(comp.get("min_headroom"))
+    return cell(text, "num warn" if (h is not None and h < 0) or share else "num")

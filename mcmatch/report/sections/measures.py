@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 
-from mcmatch.report.format import eng, finite, limits_text, percent, plain, yield_text
+from mcmatch.report.format import DisplayUnit, eng, finite, limits_text, percent, plain, yield_text
 from mcmatch.report.tables import cell, num, row, table
 
 
@@ -20,20 +20,19 @@ def measures_table(summary: dict) -> dict | None:
         q = m.get("quantiles") or {}
         mean, std = finite(m.get("mean")), finite(m.get("std"))
         rel = percent(std / abs(mean), 3) if mean and std is not None and unit != "1" else "\u2013"
+        keys = ("0.00135", "0.5", "0.99865")
+        lim = specs.get(name) or {}
+        u = DisplayUnit([m.get(k) for k in ("nominal", "mean", "std", "min", "max")] + [q.get(k) for k in keys], unit)
         rows.append(
             row(
                 [
                     cell(name, "name"),
-                    num(eng(m.get("nominal"), unit)),
-                    num(eng(m.get("mean"), unit)),
-                    num(eng(m.get("std"), unit)),
+                    *(num(u(m.get(k))) for k in ("nominal", "mean", "std")),
                     num(rel),
-                    num(eng(q.get("0.00135"), unit)),
-                    num(eng(q.get("0.5"), unit)),
-                    num(eng(q.get("0.99865"), unit)),
-                    num(eng(m.get("min"), unit)),
-                    num(eng(m.get("max"), unit)),
-                    num(limits_text(specs.get(name), unit)),
+                    *(num(u(q.get(k))) for k in keys),
+                    num(u(m.get("min"))),
+                    num(u(m.get("max"))),
+                    num(limits_text(lim, unit, u) if lim else "\u2013"),
                 ]
             )
         )

@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 
 from mcmatch.report.format import eng, finite, fixed, plain
+from mcmatch.report.sections.scope import OP_HEADROOM, op_warning
 from mcmatch.report.tables import cell, num, row, sub, table
 
 #: Operating-point rows (devices are columns): key -> (label, SI unit; None for text, "" for a plain number).
@@ -40,10 +41,6 @@ OP_SKIP = {"name", "drain", "gate", "source", "bulk"}
 OP_DEVICES_PER_TABLE = 8
 
 
-#: Headroom below this flags a device as close to leaving saturation [V].
-OP_HEADROOM = 0.05
-
-
 def operating_point_tables(points: object) -> list[dict]:
     """The nominal operating point, one column per device (summary["operating_point"]); [] when absent."""
     if not isinstance(points, list) or not points or not all(isinstance(p, Mapping) for p in points):
@@ -64,7 +61,7 @@ def operating_point_tables(points: object) -> list[dict]:
             cells = [cell(label)]
             for p in chunk:
                 v = p.get(k)
-                warn = (k == "region" and _op_warn(p)) or (
+                warn = (k == "region" and op_warning(p) is not None) or (
                     k == "headroom" and finite(v) is not None and v < OP_HEADROOM
                 )
                 if isinstance(v, bool):
@@ -88,12 +85,6 @@ def operating_point_tables(points: object) -> list[dict]:
         part = f" ({start // OP_DEVICES_PER_TABLE + 1})" if len(points) > OP_DEVICES_PER_TABLE else ""
         tables.append(table(columns, rows, f"Device operating points (no mismatch, nominal corner){part}", "compact"))
     return tables
-
-
-def _op_warn(p: Mapping) -> bool:
-    region = str(p.get("region", "")).lower()
-    headroom = finite(p.get("headroom"))
-    return (headroom is not None and headroom < OP_HEADROOM) or region not in ("saturation", "sat", "")
 
 
 def nodes_table(op: object) -> dict | None:

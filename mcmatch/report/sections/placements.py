@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import eng, interval_text, yield_text
+from mcmatch.report.format import eng, yield_cells, yield_text
 from mcmatch.report.tables import cell, num, row, table
 from mcmatch.report.targets import spec_unit
 
@@ -37,7 +37,7 @@ def placements_table(summary: dict, key_measures: list[str]) -> dict | None:
             cells += [num(eng(s.get("mean"), unit)), num(eng(s.get("std"), unit))]
         y = p.get("yield")
         if isinstance(y, Mapping):
-            cells += [num(yield_text(y.get("fraction"))), num(interval_text(y.get("ci95")))]
+            cells += [num(text) for text in yield_cells(y)]
         else:
             cells += [num(yield_text(y)), num("\u2013")]
         rows.append(row(cells))

@@ -13,8 +13,10 @@ from mcmatch.report.format import (
     percent,
     sigma_equivalent,
     yield_text,
+    zero_failure_text,
 )
 from mcmatch.report.sections.measures import sampling_text
+from mcmatch.report.sections.scope import scope_lines
 from mcmatch.report.tables import STATUS
 from mcmatch.report.targets import corner_label, judge, spec_unit, target_of, worst_indices
 
@@ -110,6 +112,7 @@ def verdict_section(summary: dict, key_measures: list[str]) -> dict:
                 "did not converge; they count as failures in every yield above.",
             }
         )
+    zero = zero_failure_text(y.get("total"), y.get("ci95")) if y and y.get("passed") == y.get("total") else None
     needed = target.get("samples_needed")
     if needed is None and target_yield < 1:
         from mcmatch.stats.yields import samples_needed
@@ -120,8 +123,11 @@ def verdict_section(summary: dict, key_measures: list[str]) -> dict:
         "word": {"pass": "MEETS TARGET", "fail": "FAILS TARGET", "marginal": "TARGET NOT DEMONSTRATED"}[status],
         "cls": STATUS[status][1],
         "has_yield": bool(y) and bool(specs),
-        "yield": yield_text(y.get("fraction")),
-        "ci": interval_text(y.get("ci95")),
+        "yield": yield_text(y.get("fraction")) if not zero else f"0 of {int(y['total']):,} failed",
+        "yield_sub": zero.split("; ", 1)[1] if zero else None,
+        "scope": scope_lines(summary),
+        "ci": interval_text(y.get("ci95")) if not zero else f"\u2265 {yield_text((y.get('ci95') or [None])[0])}",
+        "ci_sub": "Clopper-Pearson, two-sided" if not zero else "lower end, Clopper-Pearson, two-sided",
         "sigma": sigma_equivalent(y.get("fraction")),
         "passed": y.get("passed"),
         "total": y.get("total"),

@@ -8,11 +8,11 @@ from statistics import NormalDist
 from mcmatch.report.format import (
     finite,
     fixed,
-    interval_text,
     limits_text,
     percent,
     plain,
     sigma_equivalent,
+    yield_cells,
     yield_text,
 )
 from mcmatch.report.tables import cell, num, row, status_cell, table
@@ -41,11 +41,10 @@ def yield_section(summary: dict) -> dict | None:
                 cell("all specs jointly", "name"),
                 "",
                 num(f"{y.get('passed', 0):,} / {y.get('total', 0):,}"),
-                num(yield_text(y.get("fraction"))),
-                num(interval_text(y.get("ci95"))),
+                *(num(text) for text in yield_cells(y)),
                 num("\u2013"),
                 num("\u2013"),
-                num(yield_text(1 - tail) if tail is not None else "\u2013"),
+                num(normal_fit_text(tail)),
                 status_cell(joint_status),
             ],
             "joint",
@@ -67,11 +66,10 @@ def yield_section(summary: dict) -> dict | None:
                     cell(name, "name"),
                     num(limits_text(lim, unit)),
                     num(f"{block.get('passed', 0):,} / {block.get('total', 0):,}"),
-                    num(yield_text(block.get("fraction"))),
-                    num(interval_text(block.get("ci95"))),
+                    *(num(text) for text in yield_cells(block)),
                     num(plain(cp, 3)),
                     num(plain(cpk, 3)),
-                    num(yield_text(1 - tail) if finite(tail) is not None else "\u2013"),
+                    num(normal_fit_text(tail)),
                     status_cell(judge(block, t)),
                 ]
             )
@@ -180,3 +178,14 @@ def failed_section(summary: dict) -> dict | None:
         "fraction": percent(failed / total, 3) if total else "\u2013",
         "table": tab,
     }
+
+
+def normal_fit_text(tail: object) -> str:
+    """The normal-fit yield from its tail probability: 0.0165 -> "98.35 %"; a tail below 1e-6 as "1 − 3.2e-09"
+    (and "1 − <1e-300" when it underflows), never "100.0 %"."""
+    t = finite(tail)
+    if t is None:
+        return "\u2013"
+    if t < 1e-6:
+        return f"1 \u2212 {t:.2g}" if t > 0 else "1 \u2212 <1e-300"
+    return yield_text(1.0 - t)
