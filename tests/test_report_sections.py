@@ -196,3 +196,65 @@ def test_contribution_terms_under_a_tenth_of_a_percent_fold_into_others():
     assert folded[-1]["share"] == pytest.approx(0.0005)
     assert folded[-1]["std"] == pytest.approx(math.hypot(0.02, 0.01))  # independent terms add in variance
     assert sum(t["share"] for t in folded) == pytest.approx(sum(t["share"] for t in terms))
+
+
+def test_contributions_table_has_one_unit_per_column_and_folds_small_terms():
+    s = base_summary()
+    s["measures"]["v_nb"] = {"unit": "V", "nominal": 0.63, "mean": 0.63, "std": 1.144e-3}
+    s["contributions"] = {
+        "v_nb": {
+            "linear_std": 1.143e-3,
+            "mc_std": 1.144e-3,
+            "terms": [
+                {
+                    "device": "MREF",
+                    "parameter": "vth",
+                    "sensitivity": 0.9965,
+                    "sigma": 1.125e-3,
+                    "std": 1.121e-3,
+                    "share": 0.961,
+                },
+                {
+                    "device": "MREF",
+                    "parameter": "beta",
+                    "sensitivity": -0.08984,
+                    "sigma": 2.5e-3,
+                    "std": 2.246e-4,
+                    "share": 0.0386,
+                },
+                {"device": "MOUT", "parameter": "vth", "sensitivity": 0.0, "sigma": 5.6e-4, "std": 0.0, "share": 0.0},
+                {"device": "MOUT", "parameter": "beta", "sensitivity": 0.0, "sigma": 1.2e-3, "std": 0.0, "share": 0.0},
+            ],
+        }
+    }
+    text = sections(render_report(s, None, ""))["contributions"]
+    # contributions 1.121 mV and 224.6 uV in one column unit (mV); zero terms folded (common practice, no source)
+    assert "contribution to sigma [mV]" in text and "1.121" in text and "0.2246" in text and "224.6" not in text
+    assert "others (2 terms)" in text and "0 V" not in text
+    # sensitivity per parameter unit: 0.9965 V/V is 996.5 uV per mV; -0.08984 V per unit is -898.4 uV per %
+    assert "sensitivity [\u00b5V per parameter unit]" in text and "996.5" in text and "-898.4" in text
+
+
+def test_corner_spread_draws_every_corner_or_says_how_many():
+    from mcmatch.report.figures import corner_rows
+
+    corners = [
+        {"process": "tt", "temperature": 300.0 + i, "measures": {"x": {"mean": 0.0, "std": 1.0}}} for i in range(50)
+    ]
+    assert corner_rows(corners, "x", 49, 120) == list(range(50))  # every corner when they fit
+    assert corner_rows(corners, "x", 49, 10) == [*range(9), 49]  # else the first ones and the worst
+    assert corner_rows(corners, "x", 3, 10) == list(range(10))
+    s = base_summary()
+    s["corners"] = [{**c, "measures": {"err": c["measures"]["x"]}} for c in corners]
+    s["corners_worst"] = {"err": {"process": "tt", "temperature": 349.0, "supply": None}}
+    html = render_report(s, None, "")
+    caption = sections(html)["corners"]
+    assert "err at every corner (50)" in caption
+    import mcmatch.report.sections.corners as section
+
+    saved, section.MAX_CORNER_ROWS = section.MAX_CORNER_ROWS, 10
+    try:
+        caption = sections(render_report(s, None, ""))["corners"]
+    finally:
+        section.MAX_CORNER_ROWS = saved
+    assert "err at the first 9 of 50 corners and the worst" in caption

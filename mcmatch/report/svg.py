@@ -16,6 +16,9 @@ from markupsafe import Markup, escape
 
 #: Tick and legend text size [px of the viewBox]; labels and titles are a little larger (see style.css).
 FONT = 12.0
+#: Charts wider than this [px of the viewBox] keep a width of 500 px on a narrow screen (style.css) and scroll
+#: inside their figure rather than shrink their text below about 10 px.
+NARROW = 420.0
 #: Average advance of one character of FONT-sized sans text [px], for margins sized without a layout engine.
 CHAR = 0.6 * FONT
 
@@ -236,8 +239,9 @@ class Canvas:
     # ------------------------------------------------------------------------------------------------ output
     def svg(self, cls: str = "") -> Markup:
         """The figure as inline SVG markup (safe: every text in it was escaped when added)."""
+        classes = " ".join(c for c in ("chart", "wide" if self.width > NARROW else "", cls) if c)
         head = (
-            f'<svg class="{f"chart {cls}".strip()}" viewBox="0 0 {_f(self.width)} {_f(self.height)}" '
+            f'<svg class="{classes}" viewBox="0 0 {_f(self.width)} {_f(self.height)}" '
             f'width="{_f(self.width)}" height="{_f(self.height)}" '
             f'style="max-width: {_f(self.width * 1.3)}px" role="img">'
         )

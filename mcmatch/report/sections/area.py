@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import display_scale, eng, finite, fixed, interval_text, plain, yield_text
+from mcmatch.report.format import DisplayUnit, display_scale, eng, finite, fixed, interval_text, plain, yield_text
 from mcmatch.report.tables import cell, num, row, table
 from mcmatch.report.targets import MAX_KEY_MEASURES, spec_unit
 
@@ -48,12 +48,16 @@ def area_section(summary: dict, key_measures: list[str], figures: bool) -> dict 
                     + ".",
                 }
             )
+    units = {
+        m: DisplayUnit([(p.get("measures") or {}).get(m, {}).get("std") for p in area["points"]], spec_unit(summary, m))
+        for m in shown
+    }
     point_rows = []
     for p in area["points"]:
         cells = [num(plain(p.get("scale"), 4)), num(fixed(p.get("area"), 1e12, "\u00b5m\u00b2"))]
         for m in shown:
             s = (p.get("measures") or {}).get(m, {})
-            cells.append(num(eng(s.get("std"), spec_unit(summary, m))))
+            cells.append(num(units[m](s.get("std"), with_unit=False)))
         cells.append(num(yield_text(p.get("yield")) if p.get("yield") is not None else "\u2013"))
         cells.append(cell(f"FAILS: {p['error']}", "status status-fail") if "error" in p else cell(""))
         point_rows.append(row(cells))
@@ -61,7 +65,7 @@ def area_section(summary: dict, key_measures: list[str], figures: bool) -> dict 
         [
             ("area scale", "num"),
             ("gate area", "num"),
-            *[(f"{m} sigma", "num") for m in shown],
+            *[(units[m].header(f"{m} sigma"), "num") for m in shown],
             ("joint yield", "num"),
             "note",
         ],

@@ -8,8 +8,8 @@ from mcmatch.report.format import DisplayUnit, celsius, eng, finite, percent, yi
 from mcmatch.report.tables import cell, num, row, status_cell, table
 from mcmatch.report.targets import corner_label, judge, spec_unit, target_of, worst_indices
 
-#: Corner rows drawn in the corner spread figure, at most (the table always lists every corner).
-MAX_CORNER_ROWS = 60
+#: Corner rows drawn in the corner spread figure, at most, the worst among them (the table lists every corner).
+MAX_CORNER_ROWS = 120
 
 
 def corners_section(summary: dict, key_measures: list[str], figures: bool) -> dict | None:
@@ -77,11 +77,25 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
         from mcmatch.report import figures as plots
 
         for m in shown[:2]:
-            ax = plots.corner_spread(
-                corners, measure=m, limits=specs.get(m), worst=worst.get(m), scale=units[m].factor, unit=units[m].label
-            )
             w = worst.get(m)
-            ax.title = f"corner spread of {m}: mean \u00b1 3 sigma at {len(corners)} corners" + (
+            drawn = plots.corner_rows(corners, m, w, MAX_CORNER_ROWS)
+            total = sum(1 for c in corners if m in (c.get("measures") or {}))
+            ax = plots.corner_spread(
+                corners,
+                measure=m,
+                limits=specs.get(m),
+                worst=w,
+                scale=units[m].factor,
+                unit=units[m].label,
+                max_rows=MAX_CORNER_ROWS,
+            )
+            which = (
+                f"every corner ({total})"
+                if len(drawn) == total
+                else f"the first {len(drawn) - (1 if w in drawn and drawn.index(w) == len(drawn) - 1 else 0)} of "
+                f"{total} corners and the worst"
+            )
+            ax.title = f"corner spread of {m}: mean \u00b1 3 sigma at {which}" + (
                 f"; worst {corner_label(corners[w])}" if w is not None else ""
             )
             figs.append(
@@ -89,8 +103,8 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
                     "svg": ax.svg(),
                     "alt": f"corner spread of {m}",
                     "cls": "fig-corners",
-                    "caption": f"{m} at every corner: mean (dot) and mean \u00b1 3 sigma (bar); the worst corner is "
-                    "drawn thick with a diamond; hatched: outside the spec.",
+                    "caption": f"{m} at {which}: mean (dot) and mean \u00b1 3 sigma (bar); the worst corner is "
+                    "drawn thick with a diamond; hatched: outside the spec. The table lists every corner.",
                 }
             )
     samples = {c.get("samples") for c in corners if c.get("samples")}

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import eng, yield_cells, yield_text
+from mcmatch.report.format import DisplayUnit, yield_cells, yield_text
 from mcmatch.report.tables import cell, num, row, table
 from mcmatch.report.targets import spec_unit
 
@@ -28,13 +28,16 @@ def placements_table(summary: dict, key_measures: list[str]) -> dict | None:
     if not isinstance(placements, list) or not placements:
         return None
     shown = [m for m in key_measures if any(m in (p.get("measures") or {}) for p in placements)]
+    units = {}
+    for m in shown:
+        values = [v for p in placements for v in ((p.get("measures") or {}).get(m) or {}).values()]
+        units[m] = DisplayUnit(values, spec_unit(summary, m))
     rows = []
     for p in placements:
         cells = [cell(p.get("name", "?"), "name")]
         for m in shown:
             s = (p.get("measures") or {}).get(m, {})
-            unit = spec_unit(summary, m)
-            cells += [num(eng(s.get("mean"), unit)), num(eng(s.get("std"), unit))]
+            cells += [num(units[m](s.get("mean"), with_unit=False)), num(units[m](s.get("std"), with_unit=False))]
         y = p.get("yield")
         if isinstance(y, Mapping):
             cells += [num(text) for text in yield_cells(y)]
@@ -43,7 +46,7 @@ def placements_table(summary: dict, key_measures: list[str]) -> dict | None:
         rows.append(row(cells))
     columns = [
         "placement",
-        *[c for m in shown for c in ((f"{m} mean", "num"), (f"{m} sigma", "num"))],
+        *[c for m in shown for c in ((units[m].header(f"{m} mean"), "num"), (units[m].header(f"{m} sigma"), "num"))],
         ("yield", "num"),
         ("95 % interval", "num"),
     ]
