@@ -258,3 +258,16 @@ def test_corner_spread_draws_every_corner_or_says_how_many():
     finally:
         section.MAX_CORNER_ROWS = saved
     assert "err at the first 9 of 50 corners and the worst" in caption
+
+
+def test_svg_scales_and_ticks():
+    from mcmatch.report.svg import Scale, log_ticks, nice_ticks, tick_labels
+
+    # common practice, no source: round steps of 1, 2, 2.5, 5 x 10^k; 1-2-5 ticks per decade on a log axis
+    assert nice_ticks(-4.3, 6.8, 6) == [-4.0, -2.0, 0.0, 2.0, 4.0, 6.0]
+    assert tick_labels([8.95, 8.975, 9.0, 9.025]) == ["8.950", "8.975", "9.000", "9.025"]
+    assert log_ticks(6.0, 260.0) == [10.0, 20.0, 50.0, 100.0, 200.0]
+    down = Scale(3.6, -0.6, 100.0, 0.0)  # rows listed top to bottom: row 0 near the top edge
+    assert down.px(-0.6) == 0.0 and down.px(3.6) == 100.0 and down.px(0.0) < down.px(1.0)
+    log = Scale(1.0, 100.0, 0.0, 200.0, log=True)
+    assert log.px(10.0) == 100.0

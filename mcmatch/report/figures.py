@@ -318,7 +318,7 @@ def contributions(
         return ax
     biggest = max(100 * _num(t.get("share")) for t in rows)
     ax.set_x(0.0, max(biggest * 1.22, 10.0))
-    ax.set_y(len(rows) - 0.25, -0.6)
+    ax.set_y(len(rows) - 0.4, -0.6)
     ax.x_axis(nice_ticks(0.0, max(biggest * 1.22, 10.0), 5), label="share of the linearised variance [%]")
     for i, (t, name) in enumerate(zip(rows, names, strict=True)):
         share = 100 * _num(t.get("share"))
@@ -326,7 +326,8 @@ def contributions(
         y, h = ax.y.px(i - 0.34), ax.y.px(i + 0.34) - ax.y.px(i - 0.34)
         ax.rect_px(ax.x0, y, max(ax.x.px(share) - ax.x0, 0.5), h, cls)
         ax.artists += 1
-        ax.text(ax.x.px(share) + 4, ax.y.px(i) + 4, f"{share:.1f} %", "tick")
+        text = f"{share:.1f} %" if share >= 0.05 or share == 0 else "< 0.1 %"
+        ax.text(ax.x.px(share) + 4, ax.y.px(i) + 4, text, "tick")
         ax.text(ax.x0 - 6, ax.y.px(i) + 4, name, "tick", "end")
     ax.path(f"M{ax.x0:.1f} {ax.y0:.1f}V{ax.y1:.1f}", "axis")
     return ax
@@ -418,6 +419,6 @@ def corner_spread(
 def _corner_text(c: Mapping) -> str:
     t = c.get("temperature")
     v = c.get("supply")
-    temp = "" if t is None else f"{t - 273.15:.0f} \u00b0C"
-    volts = "" if v is None else f"{v:.3g} V"
-    return " ".join(x for x in (str(c.get("process", "?")), temp, volts) if x)
+    temp = "" if t is None else f"{t - 273.15:4.0f} \u00b0C"
+    volts = "" if v is None else f"{v:5.3g} V"
+    return " ".join(x for x in (f"{c.get('process', '?')!s:>3}", temp, volts) if x)

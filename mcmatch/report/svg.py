@@ -72,7 +72,7 @@ class Scale:
         self.lo, self.hi = (math.log10(lo), math.log10(hi)) if self.log else (lo, hi)
         if not (math.isfinite(self.lo) and math.isfinite(self.hi)):
             self.lo, self.hi = 0.0, 1.0
-        if self.hi <= self.lo:  # one value: centre it in a unit-wide range
+        if self.hi == self.lo:  # one value: centre it in a unit-wide range (hi < lo draws the axis reversed)
             self.lo, self.hi = self.lo - 0.5 * (abs(self.lo) or 1.0), self.hi + 0.5 * (abs(self.hi) or 1.0)
         self.a, self.b = a, b
         self.lo_data, self.hi_data = lo, hi
