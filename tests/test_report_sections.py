@@ -271,3 +271,21 @@ def test_svg_scales_and_ticks():
     assert down.px(-0.6) == 0.0 and down.px(3.6) == 100.0 and down.px(0.0) < down.px(1.0)
     log = Scale(1.0, 100.0, 0.0, 200.0, log=True)
     assert log.px(10.0) == 100.0
+
+
+def test_placement_grid_draws_every_cell_as_text_and_shapes():
+    from mcmatch.report.placement_grid import candidate_svg
+
+    # common practice, no source: one square per cell, its letter as text, one centroid marker per device
+    entry = {
+        "name": "quad <cc>",
+        "rows": ["DABD", "DBAD"],
+        "centroids": {"MREF": [0.0, 0.0], "MOUT": [0.0, 0.0]},
+        "layout": {"pitch": [4e-6, 4e-6], "letters": {"A": "MREF", "B": "MOUT"}, "dummy": "D", "origin": "center"},
+        "yield": {"fraction": 0.99},
+    }
+    svg = str(candidate_svg(entry).svg())
+    assert svg.count('<rect class="cell') == 8 and svg.count('class="cell dummy"') == 4
+    assert len(re.findall(r'class="cell-letter">[AB]</text>', svg)) == 4
+    assert "quad &lt;cc&gt;  (yield 99.000 %)" in svg  # the candidate's name is escaped text
+    assert "centroid of A (MREF)" in svg and "centroid of B (MOUT)" in svg

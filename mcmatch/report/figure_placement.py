@@ -1,8 +1,9 @@
 """Drawings of placement candidates: unit cells as coloured, hatched squares with their letters, centroids marked.
 
 Data in (one entry of summary["placements"]), ``ax=None``, return ``ax``. Matplotlib is imported here only, with the
-Agg backend; figures are built on :class:`matplotlib.figure.Figure` directly (no pyplot state), so a report can embed
-them with :func:`mcmatch.report.figures.data_uri` or ``fig.savefig``. Colour and hatch both tell the devices apart, so
+Agg backend; figures are built on :class:`matplotlib.figure.Figure` directly (no pyplot state), for
+``mcmatch placements --plot`` (``fig.savefig`` to PNG or SVG). The report draws the same cells as inline SVG with
+:mod:`mcmatch.report.placement_grid`, which holds the shared palette. Colour and hatch both tell the devices apart, so
 the drawing still reads in black and white.
 """
 
