@@ -289,3 +289,15 @@ def test_placement_grid_draws_every_cell_as_text_and_shapes():
     assert len(re.findall(r'class="cell-letter">[AB]</text>', svg)) == 4
     assert "quad &lt;cc&gt;  (yield 99.000 %)" in svg  # the candidate's name is escaped text
     assert "centroid of A (MREF)" in svg and "centroid of B (MOUT)" in svg
+
+
+def test_operating_point_rows_keep_one_prefix_across_devices():
+    s = base_summary()
+    s["operating_point"] = [
+        {"name": "MREF", "region": "saturation", "gds": 3.902e-7, "gm": 1.109e-4},
+        {"name": "MOUT", "region": "saturation", "gds": 1.561e-6, "gm": 4.483e-4},
+    ]
+    text = sections(render_report(s, None, ""))["operating-point"]
+    # common practice, no source: 390.2 nS beside 1.561 uS reads as 0.3902 uS; 1/g_ds 2.563 MOhm and 0.6406 MOhm
+    assert "0.3902 \u00b5S" in text and "1.561 \u00b5S" in text and "nS" not in text
+    assert "2.563 M\u03a9" in text and "0.6406 M\u03a9" in text

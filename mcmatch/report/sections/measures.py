@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 
-from mcmatch.report.format import DisplayUnit, eng, finite, limits_text, percent, plain, yield_text
+from mcmatch.report.format import DisplayUnit, finite, limits_text, percent, plain, yield_text
 from mcmatch.report.tables import cell, num, row, table
 
 
@@ -78,8 +78,9 @@ def sampling_section(summary: dict) -> dict | None:
         if not isinstance(m, Mapping):
             continue
         unit = (measures.get(name) or {}).get("unit", "")
-        cells = [cell(f"sigma of {name}", "name"), num(eng(m.get("std"), unit)), num(eng(m.get("std_error"), unit))]
-        cells.append(num(eng(m.get("mc_std_error"), unit)))
+        u = DisplayUnit([m.get("std"), m.get("std_error"), m.get("mc_std_error")], unit)  # one prefix per row
+        cells = [cell(f"sigma of {name}", "name"), num(u(m.get("std"))), num(u(m.get("std_error")))]
+        cells.append(num(u(m.get("mc_std_error"))))
         if sobol:
             cells.append(num(plain(m.get("sample_ratio"), 3)))
         rows.append(row(cells))

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import eng, finite, fixed, plain
+from mcmatch.report.format import DisplayUnit, eng, finite, fixed, plain
 from mcmatch.report.sections.scope import OP_HEADROOM, op_warning
 from mcmatch.report.tables import cell, num, row, sub, table
 
@@ -59,6 +59,7 @@ def operating_point_tables(points: object) -> list[dict]:
         for k in keys:
             label, unit = OP_ROWS.get(k, (k.replace("_", " "), ""))
             cells = [cell(label)]
+            shown = DisplayUnit([p.get(k) for p in chunk if not isinstance(p.get(k), (bool, str))], unit or "")
             for p in chunk:
                 v = p.get(k)
                 warn = (k == "region" and op_warning(p) is not None) or (
@@ -71,7 +72,7 @@ def operating_point_tables(points: object) -> list[dict]:
                 elif unit == "1/V":
                     text = fixed(v, 1.0, "/V", 3)
                 elif unit:
-                    text = eng(v, unit)
+                    text = shown(v)  # one prefix across the devices of a row
                 else:
                     text = plain(v, 3)
                 cells.append(cell(text, "num warn" if warn else "num"))
@@ -80,7 +81,8 @@ def operating_point_tables(points: object) -> list[dict]:
             rows.append(
                 row([cell(sub("intrinsic gain g_m/g_ds")), *[num(plain(p["gm"] / p["gds"], 3)) for p in chunk]])
             )
-            rows.append(row([cell(sub("r_o = 1/g_ds")), *[num(eng(1.0 / p["gds"], "ohm")) for p in chunk]]))
+            ro = DisplayUnit([1.0 / p["gds"] for p in chunk], "ohm")
+            rows.append(row([cell(sub("r_o = 1/g_ds")), *[num(ro(1.0 / p["gds"])) for p in chunk]]))
         columns = ["quantity", *[(str(p.get("name", "?")), "num device") for p in chunk]]
         part = f" ({start // OP_DEVICES_PER_TABLE + 1})" if len(points) > OP_DEVICES_PER_TABLE else ""
         tables.append(table(columns, rows, f"Device operating points (no mismatch, nominal corner){part}", "compact"))
