@@ -21,6 +21,7 @@ from mcmatch.config.templates import (
     toml_value,
 )
 from mcmatch.errors import ConfigError
+from mcmatch.results.atomic import write_text_atomic
 from mcmatch.results.folder import check_output_file
 
 #: The technology library beside the package in a source checkout (configs/technologies/NAME.toml).
@@ -230,9 +231,6 @@ def execute(args: argparse.Namespace) -> int:
     if out is None:
         sys.stdout.write(text)
         return 0
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.tmp")
-    tmp.write_text(text, encoding="utf-8")
-    tmp.replace(out)
+    write_text_atomic(out, text)
     print(f"wrote {out}: next `mcmatch check {out}`, then `mcmatch run {out}`", file=sys.stderr)
     return 0

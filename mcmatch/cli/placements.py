@@ -59,8 +59,10 @@ def execute(args: argparse.Namespace) -> int:
     entries, best = run_placements(config, study, _Options(), samples=args.samples)
     if args.plot:
         from mcmatch.report.figure_placement import placement_figure
+        from mcmatch.results.atomic import atomic_file
 
-        placement_figure(entries).savefig(args.plot)
+        with atomic_file(args.plot, "wb") as handle:  # never half a drawing
+            placement_figure(entries).savefig(handle, format=args.plot.rsplit(".", 1)[-1].lower())
     if args.json:
         json.dump({"placements": entries, "placement_best": best}, sys.stdout, indent=2, allow_nan=False)
         print()

@@ -1202,8 +1202,8 @@ def placement_drawing(summary: dict) -> dict | None:
     placements = summary.get("placements")
     if not isinstance(placements, list) or not placements:
         return None
-    from mcmatch.report.figure_placement import placement_figure
     from mcmatch.report import figures as plots
+    from mcmatch.report.figure_placement import placement_figure
 
     try:
         figure = placement_figure(placements)
@@ -1562,6 +1562,7 @@ def write_report(run_dir: str | os.PathLike, out: str | os.PathLike | None = Non
 
     Raises ConfigError naming the file when the folder is not a readable run folder. Returns the report's path.
     """
+    from mcmatch.results.atomic import write_text_atomic
     from mcmatch.results.tables import read_samples
 
     folder = Path(run_dir)
@@ -1597,22 +1598,3 @@ def write_report(run_dir: str | os.PathLike, out: str | os.PathLike | None = Non
     target = Path(out) if out is not None else folder / "report.html"
     write_text_atomic(target, html)
     return target
-
-
-def write_text_atomic(path: Path, text: str) -> None:
-    """Write `text` to a temporary sibling of `path`, fsync it, then os.replace: never a half-written file."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.parent / f".{path.name}.{os.getpid()}-{os.urandom(4).hex()}.tmp"
-    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # the umask applies, as for any new file
-    try:
-        if path.exists():
-            os.chmod(tmp, path.stat().st_mode & 0o777)  # a replaced report keeps its mode
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
