@@ -8,7 +8,6 @@ Values stay SI until here; this module only converts them to engineering units f
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import re
@@ -1563,20 +1562,14 @@ def write_report(run_dir: str | os.PathLike, out: str | os.PathLike | None = Non
     Raises ConfigError naming the file when the folder is not a readable run folder. Returns the report's path.
     """
     from mcmatch.results.atomic import write_text_atomic
+    from mcmatch.results.summary import read_summary
     from mcmatch.results.tables import read_samples
 
     folder = Path(run_dir)
     summary_path = folder / "summary.json"
     if not folder.is_dir():
         raise ConfigError("expected a run folder written by 'mcmatch run'", file=str(folder))
-    try:
-        summary = json.loads(summary_path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ConfigError("no summary.json: expected a run folder written by 'mcmatch run'", file=str(folder)) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise ConfigError(f"expected the JSON summary of a run ({exc})", file=str(summary_path)) from None
-    if not isinstance(summary, dict) or "measures" not in summary:
-        raise ConfigError("expected a run summary with a 'measures' object", file=str(summary_path), key="measures")
+    summary = read_summary(summary_path)  # checked against results.summary.Summary; ConfigError if damaged
     samples = None
     for name in ("samples.parquet", "samples.csv"):
         path = folder / name

@@ -15,6 +15,7 @@ from mcmatch import __version__
 from mcmatch.config.schema import Config
 from mcmatch.draws.mismatch import SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
+from mcmatch.results.summary import finish_summary
 from mcmatch.results.tables import to_frame
 from mcmatch.run.engine import (
     BLOCK,
@@ -202,4 +203,5 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     summary.update(run_extra_analyses(config, study, summary, options))
     table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
+    summary = finish_summary(summary)  # schema_version added; checked against results.summary.Summary
     return RunResult(summary=summary, table=table, study=study)
