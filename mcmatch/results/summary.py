@@ -63,7 +63,7 @@ class Summary(Block):
     yield_: MainYield = Field(alias="yield", description="joint yield against [specs], with per-spec yields")
     sampling: Sampling = Field(description="how the mismatch was drawn; standard errors of the estimates")
     failed_examples: list[dict[str, int | float]] = Field(
-        description="the first failed samples: sample (index), dvth_<device> [V], dbeta_<device> [1]"
+        description="the first failed samples: `sample` (index), `dvth_<device>` [V], `dbeta_<device>` [1]"
     )
     statistics: StreamStatistics = Field(description="how the statistics were streamed")
     nominal_operating_point: NominalNodes = Field(description="nominal node voltages")
