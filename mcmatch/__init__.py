@@ -6,13 +6,15 @@ scipy, pandas or pydantic)::
     import mcmatch
     config = mcmatch.load_config("configs/demo.toml")
     config = mcmatch.with_overrides(config, samples=4000, seed=2)   # checked like the command-line options
-    result = mcmatch.run(config, jobs=1)                             # Result: .summary (typed), .table (pandas)
+    result = mcmatch.run_config(config, jobs=1)                      # Result: .summary (typed), .table (pandas)
     result.summary.yield_.fraction, result.summary.measures["gain_error"].std
     mcmatch.save_run(result, "reports/demo")                         # the run folder `mcmatch run` writes
     again = mcmatch.load_run("reports/demo")
     html = mcmatch.render_report(again)
 
-Bad input raises :class:`ConfigError` (file, key and what was expected), before any work.
+Bad input raises :class:`ConfigError` (file, key and what was expected), before any work. The run function is
+``run_config``, not ``run``: ``mcmatch.run`` is the engine's subpackage, and Python's import system sets that
+attribute to the subpackage whenever any module imports it.
 """
 
 from __future__ import annotations
@@ -34,7 +36,7 @@ __all__ = [
     "load_config",
     "load_run",
     "render_report",
-    "run",
+    "run_config",
     "save_run",
     "with_overrides",
 ]
@@ -51,7 +53,7 @@ _LAZY = {
     "Result": "mcmatch.results.run_folder",
     "load_run": "mcmatch.results.run_folder",
     "with_overrides": "mcmatch.api",
-    "run": "mcmatch.api",
+    "run_config": "mcmatch.api",
     "save_run": "mcmatch.api",
     "render_report": "mcmatch.api",
 }

@@ -20,7 +20,7 @@ def with_overrides(config: Config, **analysis: Any) -> Config:
     return config.with_analysis(**analysis)
 
 
-def run(
+def run_config(
     config: Config | str | os.PathLike,
     jobs: int | None = 1,
     *,

@@ -31,7 +31,7 @@ def api_and_cli(tmp_path_factory):
     folder = tmp_path_factory.mktemp("api")
     config_path = ROOT / "configs" / "demo.toml"
     config = mcmatch.with_overrides(mcmatch.load_config(config_path), samples=FAST, seed=5)
-    result = mcmatch.run(config, jobs=1)
+    result = mcmatch.run_config(config, jobs=1)
     from mcmatch.cli import main
 
     cli_dir = folder / "cli"
@@ -63,8 +63,11 @@ def test_import_is_light_and_every_public_name_resolves():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+    import mcmatch.run.engine  # noqa: F401  (the subpackage mcmatch.run must not hide a public name)
+
     for name in mcmatch.__all__:
         assert getattr(mcmatch, name) is not None
+    assert callable(mcmatch.run_config) and callable(mcmatch.save_run)
     with pytest.raises(AttributeError):
         mcmatch.no_such_name  # noqa: B018
 

@@ -178,3 +178,20 @@ def _models_in(annotation: object) -> list[type[BaseModel]]:
     if isinstance(annotation, type) and issubclass(annotation, BaseModel):
         return [annotation]
     return [m for arg in getattr(annotation, "__args__", ()) for m in _models_in(arg)]
+
+
+def test_entries_of_points_without_an_operating_point_are_valid(summaries):
+    # a corner, an area point, a confirmation and a placement whose nominal solve failed keep only their keys and
+    # an error (studies/analyses.py, studies/extra.py); the model must take them as they are written
+    demo = copy.deepcopy(summaries["demo"])
+    demo["corners"].append({"process": "ss", "temperature": 233.15, "supply": None, "error": "no operating point"})
+    demo["area"]["points"].append({"scale": 0.01, "requested_scale": 0.01, "area": 4e-13, "error": "no point"})
+    name = next(iter(demo["area"]["minimum"]))
+    demo["area"]["minimum"][name]["confirmed"] = {"scale": 2.0, "requested_scale": 2.0, "area": 8e-11, "error": "x"}
+    placement = copy.deepcopy(summaries["placement"])
+    entry = placement["placements"][0]
+    placement["placements"].append(
+        {k: entry[k] for k in ("name", "rows", "centroids", "cells", "shifts", "warnings", "layout")} | {"error": "x"}
+    )
+    for summary in (demo, placement):
+        assert Summary.model_validate(finish_summary(summary)).to_dict() == finish_summary(summary)
