@@ -312,71 +312,37 @@ class FastPlan:
         raise KeyError(row)
 
 
-def strong_components(n: int, edges: dict[int, set[int]]) -> list[list[int]]:
-    """Strongly connected components of a directed graph on 0..n-1 (Tarjan), each listed after every component it
-    reaches: with edges k -> j meaning "k needs j", that is a valid solving order."""
-    index: dict[int, int] = {}
-    low: dict[int, int] = {}
-    stack: list[int] = []
-    on_stack: set[int] = set()
-    out: list[list[int]] = []
-    counter = [0]
+def block_order(m: int, pattern: set[tuple[int, int]]) -> list[tuple[list[int], list[int]]]:
+    """The diagonal blocks of a square system with nonzeros `pattern` ((equation, unknown) pairs), as (unknowns,
+    equations) sorted lists, in a solving order: each block needs only itself and earlier blocks (block-triangular
+    form).
 
-    def visit(v: int) -> None:
-        index[v] = low[v] = counter[0]
-        counter[0] += 1
-        stack.append(v)
-        on_stack.add(v)
-        for w in sorted(edges.get(v, ())):
-            if w not in index:
-                visit(w)
-                low[v] = min(low[v], low[w])
-            elif w in on_stack:
-                low[v] = min(low[v], index[w])
-        if low[v] == index[v]:
-            component = []
-            while True:
-                w = stack.pop()
-                on_stack.discard(w)
-                component.append(w)
-                if w == v:
-                    break
-            out.append(sorted(component))
+    A maximum bipartite matching pairs each unknown with an equation; the strongly connected components of
+    "unknown k needs unknown j" (its equation has a nonzero in column j) are the blocks. They do not depend on
+    which perfect matching is found. Blocks are ordered by dependency level (a block comes one level after the
+    deepest block it needs), within a level by their first unknown. ValueError if the system is structurally
+    singular."""
+    from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import connected_components, maximum_bipartite_matching
 
-    for v in range(n):
-        if v not in index:
-            visit(v)
-    return out
+    entries = np.array(sorted(pattern), dtype=np.intp).reshape(-1, 2)
+    graph = csr_matrix((np.ones(len(entries)), (entries[:, 0], entries[:, 1])), shape=(m, m))
+    equation = maximum_bipartite_matching(graph, perm_type="row")  # equation matched to each unknown
+    if (equation < 0).any():
+        raise ValueError(f"structurally singular system: no equation left for unknown {int(np.argmin(equation))}")
+    needs = graph[equation]  # row k: the unknowns that unknown k's equation reads
+    count, labels = connected_components(needs, directed=True, connection="strong")
+    members = [np.flatnonzero(labels == c).tolist() for c in range(count)]
+    requires = [set(labels[needs[cols].indices].tolist()) - {c} for c, cols in enumerate(members)]
+    level: dict[int, int] = {}
 
+    def depth(c: int) -> int:  # the condensation is acyclic; its depth is at most the number of blocks
+        if c not in level:
+            level[c] = 1 + max((depth(d) for d in requires[c]), default=-1)
+        return level[c]
 
-def matching(n: int, pattern: set[tuple[int, int]]) -> list[int]:
-    """A perfect matching of equations to unknowns on the nonzeros `pattern` of a square system (equation
-    result[k] for unknown k), diagonal entries first (a node's own KCL row), augmenting paths for the rest."""
-    by_column: dict[int, list[int]] = {}
-    for r, c in sorted(pattern):
-        by_column.setdefault(c, []).append(r)
-    owner: dict[int, int] = {}  # equation -> unknown
-    for k in range(n):
-        if (k, k) in pattern:
-            owner[k] = k
-
-    def augment(k: int, seen: set[int]) -> bool:
-        for r in by_column.get(k, ()):
-            if r in seen:
-                continue
-            seen.add(r)
-            if r not in owner or augment(owner[r], seen):
-                owner[r] = k
-                return True
-        return False
-
-    for k in range(n):
-        if k not in owner.values() and not augment(k, set()):
-            raise ValueError(f"structurally singular system: no equation left for unknown {k}")
-    result = [0] * n
-    for r, k in owner.items():
-        result[k] = r
-    return result
+    ordered = sorted(members, key=lambda cols: (depth(int(labels[cols[0]])), cols[0]))
+    return [(cols, sorted(int(equation[k]) for k in cols)) for cols in ordered]
 
 
 def build_fast_plan(study: Study) -> FastPlan:
@@ -394,8 +360,6 @@ def build_fast_plan(study: Study) -> FastPlan:
     for (r, c), v in jac.items():
         dense[r, c] = float(np.asarray(v).reshape(-1)[0])
     true_pattern = {(r, c) for (r, c) in reduced.pattern if r != c or dense[r, c] != 0.0}
-    order = matching(m, true_pattern)  # equation order[k] <-> unknown k
-    edges = {k: {j for (r, j) in true_pattern if r == order[k] and j != k} for k in range(m)}
     # dF/dvth = -dI/dvg (vth enters with the gate voltage), dF/d(dbeta) = I (I is proportional to beta)
     sens = np.zeros((m, 2, p.count))
     for k in range(p.count):
@@ -409,10 +373,8 @@ def build_fast_plan(study: Study) -> FastPlan:
     measured = set()
     for measure in study.measures.values():
         measured.update([measure.current] if measure.current else measure.ratio or ())
-    components = strong_components(m, edges)
     views = []
-    for cols in components:
-        eqs = sorted(order[k] for k in cols)
+    for cols, eqs in block_order(m, true_pattern):
         views.append((cols, eqs, restrict(reduced, eqs, cols)))
     last_block = {}
     for b, (_, _, view) in enumerate(views):
