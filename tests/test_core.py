@@ -215,12 +215,12 @@ def test_batched_solve_matches_scipy_root(kind, builder, technology):
     batched = solve_samples(study, dvth, dbeta)
     assert batched["converged"].all()
     from mcmatch.draws.mismatch import perturbed
-    from mcmatch.model.circuit import evaluate_measures
+    from mcmatch.solve.measures import mna_measures
 
     vth, beta = perturbed(p, dvth, dbeta)
     for s in range(n):
         x = _reference_solve(study, vth[s], beta[s])
-        ref = evaluate_measures(study.circuit, study.measures, x[None, :], vth[s : s + 1], beta[s : s + 1])
+        ref = mna_measures(study.circuit, study.measures, x[None, :], vth[s : s + 1], beta[s : s + 1])
         for key, values in ref.items():
             if study.measures[key].kind == "ratio":  # ratio/ideal - 1: compare the ratio itself, 1e-9 relative
                 assert batched[key][s] + 1 == pytest.approx(values[0] + 1, rel=1e-9), (key, s)

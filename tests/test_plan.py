@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from mcmatch.run.engine import block_order
+from mcmatch.solve.plan import block_order
 
 
 def reachable(adjacency: np.ndarray) -> np.ndarray:

@@ -12,7 +12,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from mcmatch.config.schema import GROUND, Measure, Netlist
+from mcmatch.config.schema import GROUND, Netlist
 from mcmatch.model.devices import ekv, square_law
 from mcmatch.model.technology import EKV, DeviceParameters
 
@@ -186,60 +186,6 @@ def voltage_mask(circuit: Circuit) -> np.ndarray:
     mask = np.zeros(circuit.n_unknowns, dtype=bool)
     mask[: circuit.n_nodes] = True
     return mask
-
-
-def element_current(circuit: Circuit, xe: np.ndarray, vth: np.ndarray, beta: np.ndarray, name: str) -> np.ndarray:
-    """Current of a named element [A], signed as DESIGN.md section 3 states."""
-    if name in circuit.mosfet_names:
-        return mosfet_currents(circuit, xe, vth, beta, circuit.mosfet_names.index(name))[0]
-    if name in circuit.isource_names:
-        value = circuit.isource_value[circuit.isource_names.index(name)]
-        return np.full(xe.shape[0], value)
-    if name in circuit.vsource_names:
-        return xe[:, circuit.n_nodes + circuit.vsource_names.index(name)].copy()
-    k = circuit.resistor_names.index(name)
-    return circuit.resistor_conductance[k] * (xe[:, circuit.resistor_a[k]] - xe[:, circuit.resistor_b[k]])
-
-
-def node_resistance(jac: np.ndarray, node: int) -> np.ndarray:
-    """Small-signal resistance from node `node` to gnd [ohm], from the MNA Jacobian (S, n, n) at the solution.
-
-    Voltage sources are shorted (their constraint rows stay), current sources open (constant): a test current of
-    1 A injected at the node gives dx = J^-1 e_node, and the resistance is its entry at the node.
-    """
-    n_samples, n, _ = jac.shape
-    rhs = np.zeros((n_samples, n, 1))
-    rhs[:, node, 0] = 1.0
-    return np.linalg.solve(jac, rhs)[:, node, 0]
-
-
-def evaluate_measures(
-    circuit: Circuit,
-    measures: dict[str, Measure],
-    x: np.ndarray,
-    vth: np.ndarray,
-    beta: np.ndarray,
-    jac: np.ndarray | None = None,
-) -> dict[str, np.ndarray]:
-    """Every measure at solved unknowns x (S, n): currents [A], voltages [V], ratio errors [1], resistances [ohm]."""
-    xe = extend(x)
-    out: dict[str, np.ndarray] = {}
-    for key, measure in measures.items():
-        if measure.current is not None:
-            out[key] = element_current(circuit, xe, vth, beta, measure.current)
-        elif measure.voltage is not None:
-            out[key] = xe[:, circuit.node_index(measure.voltage)].copy()
-        elif measure.ratio is not None:
-            num = element_current(circuit, xe, vth, beta, measure.ratio[0])
-            den = element_current(circuit, xe, vth, beta, measure.ratio[1])
-            ideal = 1.0 if measure.ideal is None else measure.ideal
-            with np.errstate(divide="ignore", invalid="ignore"):
-                out[key] = num / den / ideal - 1.0
-        else:
-            if jac is None:
-                _, jac = residual_jacobian(circuit, x, vth, beta)
-            out[key] = node_resistance(jac, circuit.node_index(measure.resistance))
-    return out
 
 
 # --------------------------------------------------------------------------------------------------------------------

@@ -23,20 +23,17 @@ from mcmatch.model.circuit import (
     GMIN,
     Circuit,
     DeviceState,
-    ReducedCircuit,
     compile_circuit,
     device_state,
-    evaluate_measures,
-    reduce_circuit,
-    reduce_unknowns,
     reduced_residual_jacobian,
     residual_jacobian,
-    restrict,
     voltage_mask,
 )
 from mcmatch.model.technology import device_parameters
 from mcmatch.run.workers import Watched
-from mcmatch.solve.newton import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
+from mcmatch.solve.measures import ReducedPoint, evaluate_measures, grounded_source_currents, mna_measures
+from mcmatch.solve.newton import ColumnSystem, newton_columns, solve_batch, solve_operating_point
+from mcmatch.solve.plan import Block, FastPlan, build_fast_plan, check_plan
 
 #: Below this many samples a run stays in-process: starting a pool (POOL_STARTUP_S) costs more than it saves on 2
 #: cores. Measured with the fast path: a 2-worker pool pays from about 1.5e7 simple-mirror or 1e7 cascode samples.
@@ -211,7 +208,7 @@ def prepare(
 def nominal_measures(study: Study) -> dict[str, float]:
     """Every measure at the nominal point (no mismatch) [SI]."""
     p = study.circuit.params
-    values = evaluate_measures(study.circuit, study.measures, study.x_nominal[None, :], p.vth[None, :], p.beta[None, :])
+    values = mna_measures(study.circuit, study.measures, study.x_nominal[None, :], p.vth[None, :], p.beta[None, :])
     return {k: float(v[0]) for k, v in values.items()}
 
 
@@ -255,7 +252,7 @@ def solve_samples_mna(
     _, jac = residual_jacobian(circuit, result.x, vth, beta)
     ok = result.converged & np.isfinite(jac).all(axis=(1, 2)) & within_rails(study, result.x[:, : circuit.n_nodes])
     jac = np.where(ok[:, None, None], jac, np.eye(circuit.n_unknowns))
-    values = evaluate_measures(circuit, study.measures, result.x, vth, beta, jac)
+    values = mna_measures(circuit, study.measures, result.x, vth, beta, jac)
     out: dict[str, np.ndarray] = {}
     for v in values.values():
         ok &= np.isfinite(v)
@@ -267,152 +264,6 @@ def solve_samples_mna(
     return out
 
 
-# ------------------------------------------------------------------------------------------------------ fast path
-@dataclass(frozen=True)
-class Block:
-    """One diagonal block of the reduced system in block-triangular order: the unknowns (u rows) it solves, once
-    every earlier block is solved, with its own elimination order and a first-order predictor. Per local unknown,
-    the predictor holds ((device, du/dvth [1], du/d(dbeta) [V]) ...) and ((earlier u row, du/du_row) ...)."""
-
-    view: ReducedCircuit
-    linear: SparseElimination
-    unknowns: tuple[int, ...]
-    params: tuple[tuple[tuple[int, float, float], ...], ...]
-    upstream: tuple[tuple[tuple[int, float], ...], ...]
-    record: tuple[int, ...]
-
-    @property
-    def reads(self) -> tuple[int, ...]:
-        """u rows of earlier blocks that the block's elements read."""
-        view, rows = self.view, set()
-        for k in view.active:
-            rows.update(r for r, _ in view.stamps[k].terminals if r >= 0)
-        for rs in view.resistors:
-            rows.update(r for r, _ in rs.terminals if r >= 0)
-        for src in view.sources:
-            rows.update((src.branch, src.plus, src.minus))
-        return tuple(sorted(rows - set(self.unknowns)))
-
-
-@dataclass(frozen=True)
-class FastPlan:
-    """Everything the fast path needs besides the samples: the whole reduced system, its nominal unknowns (m,), and
-    its diagonal blocks in solving order (strongly connected components of the Jacobian's pattern, so each block
-    depends only on itself and earlier ones)."""
-
-    reduced: ReducedCircuit
-    u_nominal: np.ndarray
-    blocks: tuple[Block, ...]
-
-    def block_of(self, row: int) -> tuple[int, int]:
-        """(block index, local column) of u row `row`."""
-        for b, block in enumerate(self.blocks):
-            if row in block.unknowns:
-                return b, block.unknowns.index(row)
-        raise KeyError(row)
-
-
-def block_order(m: int, pattern: set[tuple[int, int]]) -> list[tuple[list[int], list[int]]]:
-    """The diagonal blocks of a square system with nonzeros `pattern` ((equation, unknown) pairs), as (unknowns,
-    equations) sorted lists, in a solving order: each block needs only itself and earlier blocks (block-triangular
-    form).
-
-    A maximum bipartite matching pairs each unknown with an equation; the strongly connected components of
-    "unknown k needs unknown j" (its equation has a nonzero in column j) are the blocks. They do not depend on
-    which perfect matching is found. Blocks are ordered by dependency level (a block comes one level after the
-    deepest block it needs), within a level by their first unknown. ValueError if the system is structurally
-    singular."""
-    from scipy.sparse import csr_matrix
-    from scipy.sparse.csgraph import connected_components, maximum_bipartite_matching
-
-    entries = np.array(sorted(pattern), dtype=np.intp).reshape(-1, 2)
-    graph = csr_matrix((np.ones(len(entries)), (entries[:, 0], entries[:, 1])), shape=(m, m))
-    equation = maximum_bipartite_matching(graph, perm_type="row")  # equation matched to each unknown
-    if (equation < 0).any():
-        raise ValueError(f"structurally singular system: no equation left for unknown {int(np.argmin(equation))}")
-    needs = graph[equation]  # row k: the unknowns that unknown k's equation reads
-    count, labels = connected_components(needs, directed=True, connection="strong")
-    members = [np.flatnonzero(labels == c).tolist() for c in range(count)]
-    requires = [set(labels[needs[cols].indices].tolist()) - {c} for c, cols in enumerate(members)]
-    level: dict[int, int] = {}
-
-    def depth(c: int) -> int:  # the condensation is acyclic; its depth is at most the number of blocks
-        if c not in level:
-            level[c] = 1 + max((depth(d) for d in requires[c]), default=-1)
-        return level[c]
-
-    ordered = sorted(members, key=lambda cols: (depth(int(labels[cols[0]])), cols[0]))
-    return [(cols, sorted(int(equation[k]) for k in cols)) for cols in ordered]
-
-
-def build_fast_plan(study: Study) -> FastPlan:
-    """Reduce the study's circuit, split it into blocks and fix pivot orders and predictors at its nominal point."""
-    circuit = study.circuit
-    reduced = reduce_circuit(circuit)
-    m = reduced.size
-    p = circuit.params
-    u_nom = reduce_unknowns(reduced, study.x_nominal[None, :])
-    if m == 0:
-        return FastPlan(reduced=reduced, u_nominal=np.zeros(0), blocks=())
-    vth, beta = p.vth[:, None], p.beta[:, None]
-    _, jac = reduced_residual_jacobian(reduced, u_nom, vth, beta)
-    dense = np.zeros((m, m))
-    for (r, c), v in jac.items():
-        dense[r, c] = float(np.asarray(v).reshape(-1)[0])
-    true_pattern = {(r, c) for (r, c) in reduced.pattern if r != c or dense[r, c] != 0.0}
-    # dF/dvth = -dI/dvg (vth enters with the gate voltage), dF/d(dbeta) = I (I is proportional to beta)
-    sens = np.zeros((m, 2, p.count))
-    for k in range(p.count):
-        stamp = reduced.stamps[k]
-        if not stamp.rows:
-            continue
-        s = device_state(reduced, stamp, u_nom, vth[k], beta[k])
-        for r, sign in stamp.rows:
-            sens[r, 0, k] += -sign * stamp.polarity * float(np.asarray(s.di_dvg).reshape(-1)[0])
-            sens[r, 1, k] += sign * stamp.polarity * float(np.asarray(s.i).reshape(-1)[0])
-    measured = set()
-    for measure in study.measures.values():
-        measured.update([measure.current] if measure.current else measure.ratio or ())
-    views = []
-    for cols, eqs in block_order(m, true_pattern):
-        views.append((cols, eqs, restrict(reduced, eqs, cols)))
-    last_block = {}
-    for b, (_, _, view) in enumerate(views):
-        for k in view.active:
-            last_block[k] = b
-    blocks = []
-    solved: list[int] = []
-    for b, (cols, eqs, view) in enumerate(views):
-        local = dense[np.ix_(eqs, cols)]
-        linear = SparseElimination.build(view.pattern, local)
-        rhs = np.concatenate([sens[eqs].reshape(len(eqs), -1), dense[np.ix_(eqs, solved)]], axis=1)
-        du = -np.linalg.solve(local, rhs)
-        # drop coefficients that are round-off of structural zeros (1e-12 of the row's largest)
-        du = np.where(np.abs(du) > 1e-12 * np.abs(du).max(axis=1, keepdims=True, initial=0.0), du, 0.0)
-        dp = du[:, : 2 * p.count].reshape(len(cols), 2, p.count)
-        params = tuple(
-            tuple((k, float(dp[r, 0, k]), float(dp[r, 1, k])) for k in range(p.count) if dp[r, 0, k] or dp[r, 1, k])
-            for r in range(len(cols))
-        )
-        upstream = tuple(
-            tuple((j, float(du[r, 2 * p.count + i])) for i, j in enumerate(solved) if du[r, 2 * p.count + i])
-            for r in range(len(cols))
-        )
-        record = tuple(k for k in view.active if last_block[k] == b and circuit.mosfet_names[k] in measured)
-        blocks.append(
-            Block(
-                view=view,
-                linear=linear,
-                unknowns=tuple(cols),
-                params=params,
-                upstream=upstream,
-                record=record,
-            )
-        )
-        solved += cols
-    return FastPlan(reduced=reduced, u_nominal=u_nom[:, 0].copy(), blocks=tuple(blocks))
-
-
 _PLANS: list[tuple[Study, FastPlan | None]] = []
 
 
@@ -422,12 +273,7 @@ def fast_plan(study: Study) -> FastPlan | None:
         if cached is study:
             return plan
     try:
-        plan = build_fast_plan(study)
-        for block in plan.blocks:  # the block solver needs node voltages first, and at least one
-            rows = np.asarray(block.view.voltage_rows, dtype=bool)
-            count = int(rows.sum())
-            if count == 0 or not rows[:count].all():
-                raise ValueError("a block the fast path cannot order (e.g. a floating voltage source)")
+        plan = check_plan(build_fast_plan(study.circuit, study.x_nominal, study.measures))
     except (ValueError, np.linalg.LinAlgError):
         plan = None  # the full MNA path solves it
     _PLANS.insert(0, (study, plan))
@@ -550,7 +396,7 @@ def solve_fast(study: Study, plan: FastPlan, dvth: np.ndarray, dbeta: np.ndarray
     :func:`solve_samples`. Samples the reduced Newton does not converge are solved again by the reference path."""
     n_samples = dvth.shape[1]
     sol = _fast_newton(study, plan, dvth, dbeta)
-    out = fast_measures(study, plan, sol)
+    out = evaluate_measures(study.circuit, study.measures, ReducedPoint(plan, sol.u, sol.vth, sol.beta, sol.currents))
     free = [r for r in (plan.reduced.position[node] for node in range(study.circuit.n_nodes)) if r >= 0]
     ok = sol.converged & within_rails(study, sol.u[free].T)
     for key in study.measures:
@@ -627,116 +473,6 @@ def expand_unknowns(plan: FastPlan, u: np.ndarray, vth: np.ndarray, beta: np.nda
         for j, k in enumerate(reduced.grounded_sources):
             x[:, circuit.n_nodes + k] = currents[j]
     return x
-
-
-def fast_measures(study: Study, plan: FastPlan, sol: FastSolution) -> dict[str, np.ndarray]:
-    """Every measure at the fast path's solution; same definitions as :func:`mcmatch.model.circuit.evaluate_measures`.
-    Currents recorded at convergence are used where present (entries of unconverged samples are meaningless: those
-    samples are solved again or marked failed)."""
-    reduced = plan.reduced
-    circuit = study.circuit
-    u, vth, beta = sol.u, sol.vth, sol.beta
-    n_samples = u.shape[1]
-    states: dict[int, DeviceState] = {}
-    cache: dict = {}
-
-    def state(k: int) -> DeviceState:
-        if k not in states:
-            states[k] = device_state(reduced, reduced.stamps[k], u, vth[k], beta[k], need="")
-        return states[k]
-
-    def channel_current(k: int) -> np.ndarray:
-        return sol.currents[k] if k in sol.currents else state(k).i
-
-    def node_voltage(node: int) -> np.ndarray:
-        r = reduced.position[node]
-        if r >= 0:
-            return u[r]
-        return np.full(n_samples, reduced.node_voltage[circuit.n_nodes if node == circuit.ground else node])
-
-    def source_currents() -> np.ndarray:
-        if "vsrc" not in cache:
-            cache["vsrc"] = grounded_source_currents(reduced, u, state, node_voltage)
-        return cache["vsrc"]
-
-    def current(name: str) -> np.ndarray:
-        if name in circuit.mosfet_names:
-            return channel_current(circuit.mosfet_names.index(name))
-        if name in circuit.isource_names:
-            return np.full(n_samples, circuit.isource_value[circuit.isource_names.index(name)])
-        if name in circuit.vsource_names:
-            k = circuit.vsource_names.index(name)
-            r = reduced.position[circuit.n_nodes + k]
-            if r >= 0:
-                return u[r].copy()
-            return source_currents()[reduced.grounded_sources.index(k)]
-        k = circuit.resistor_names.index(name)
-        g = circuit.resistor_conductance[k]
-        return g * (node_voltage(circuit.resistor_a[k]) - node_voltage(circuit.resistor_b[k]))
-
-    out: dict[str, np.ndarray] = {}
-    for key, measure in study.measures.items():
-        if measure.current is not None:
-            out[key] = np.array(current(measure.current), dtype=float, copy=True)
-        elif measure.voltage is not None:
-            out[key] = np.array(node_voltage(circuit.node_index(measure.voltage)), dtype=float, copy=True)
-        elif measure.ratio is not None:
-            ideal = 1.0 if measure.ideal is None else measure.ideal
-            with np.errstate(divide="ignore", invalid="ignore"):
-                out[key] = current(measure.ratio[0]) / current(measure.ratio[1]) / ideal - 1.0
-        else:
-            r = reduced.position[circuit.node_index(measure.resistance)]
-            if r < 0:  # a node held by voltage sources: shorted for small signals
-                out[key] = np.zeros(n_samples)
-                continue
-            # block-triangular Jacobian: the diagonal block of its inverse is the inverse of the diagonal block
-            b, local = plan.block_of(int(r))
-            block = plan.blocks[b]
-            if ("jac", b) not in cache:
-                _, cache[("jac", b)] = reduced_residual_jacobian(block.view, u, vth, beta, states=states)
-            jac = cache[("jac", b)]
-            rhs = np.zeros((len(block.unknowns), n_samples))
-            rhs[local] = 1.0
-            y, ok = block.linear.solve(jac, rhs)
-            out[key] = np.where(ok, y[local], np.nan)
-    return out
-
-
-def grounded_source_currents(reduced: ReducedCircuit, u: np.ndarray, state, node_voltage) -> np.ndarray:
-    """Currents [A] delivered by the voltage sources tied to gnd, (n_grounded, S), from KCL at the nodes they hold."""
-    circuit = reduced.circuit
-    fixed = {node: i for i, node in enumerate(reduced.fixed_nodes)}
-    n_samples = u.shape[1]
-    leave = np.zeros((len(fixed), n_samples))
-    for k in range(len(circuit.mosfet_names)):
-        d, s = int(circuit.drain[k]), int(circuit.source[k])
-        if d not in fixed and s not in fixed:
-            continue
-        st = state(k)
-        current = circuit.params.polarity[k] * (st.i + GMIN * st.vdiff)
-        if d in fixed:
-            leave[fixed[d]] += current
-        if s in fixed:
-            leave[fixed[s]] -= current
-    for a, b, g in zip(circuit.resistor_a, circuit.resistor_b, circuit.resistor_conductance, strict=True):
-        i = g * (node_voltage(a) - node_voltage(b))
-        if int(a) in fixed:
-            leave[fixed[int(a)]] += i
-        if int(b) in fixed:
-            leave[fixed[int(b)]] -= i
-    for a, b, value in zip(circuit.isource_from, circuit.isource_to, circuit.isource_value, strict=True):
-        if int(a) in fixed:
-            leave[fixed[int(a)]] += value
-        if int(b) in fixed:
-            leave[fixed[int(b)]] -= value
-    incidence = np.zeros((len(fixed), len(reduced.grounded_sources)))
-    for j, k in enumerate(reduced.grounded_sources):
-        plus, minus = int(circuit.vsource_plus[k]), int(circuit.vsource_minus[k])
-        if plus in fixed:
-            incidence[fixed[plus], j] += 1.0
-        if minus in fixed:
-            incidence[fixed[minus], j] -= 1.0
-    return np.linalg.solve(incidence, leave)
 
 
 def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
