@@ -15,7 +15,7 @@ from mcmatch.cli import main
 from mcmatch.config.schema import config_from_dict
 from mcmatch.model.devices import thermal_voltage
 from mcmatch.model.operating_point import device_operating_points, ekv_saturation_voltage, warnings_for
-from mcmatch.run.engine import nominal_measures, prepare
+from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.units import parse_quantity
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -18,7 +18,8 @@ from mcmatch.model.sensitivity import (
     parameter_sigmas,
     square_law_hessian,
 )
-from mcmatch.run.engine import monte_carlo, nominal_point, prepare
+from mcmatch.run.chunks import monte_carlo
+from mcmatch.run.study import nominal_point, prepare
 from mcmatch.solve.measures import mna_measures
 from mcmatch.stats.contributions import contribution_table, std_interval
 from mcmatch.studies.analyses import run_contributions

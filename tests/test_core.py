@@ -15,7 +15,8 @@ from mcmatch.draws.mismatch import BLOCK, standard_normals
 from mcmatch.model.circuit import GMIN, residual_jacobian
 from mcmatch.model.technology import pair_sigma, pelgrom_sigma
 from mcmatch.results.tables import read_samples
-from mcmatch.run.engine import monte_carlo, nominal_measures, prepare, run_chunk, solve_samples
+from mcmatch.run.chunks import monte_carlo, run_chunk
+from mcmatch.run.study import nominal_measures, prepare, solve_samples
 
 # Test technologies: round textbook-style numbers (value from memory of typical classroom examples), not a process.
 TEXTBOOK = {

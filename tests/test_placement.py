@@ -19,7 +19,7 @@ from mcmatch.draws.placement import (
     distance_terms,
     pick_best,
 )
-from mcmatch.run.engine import prepare
+from mcmatch.run.study import prepare
 from mcmatch.studies.extra import run_extra_analyses, run_placements
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"

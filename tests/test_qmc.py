@@ -21,7 +21,8 @@ from mcmatch.draws.mismatch import (
     sobol_jump,
     standard_normals,
 )
-from mcmatch.run.engine import prepare, run_chunk, with_seed
+from mcmatch.run.chunks import run_chunk
+from mcmatch.run.study import prepare, with_seed
 from mcmatch.stats import streaming
 from mcmatch.studies.pipeline import RunOptions, run_study
 

@@ -17,7 +17,7 @@ from mcmatch.errors import ConfigError
 from mcmatch.model.circuit import GMIN
 from mcmatch.model.devices import square_law
 from mcmatch.model.operating_point import device_operating_points
-from mcmatch.run.engine import nominal_measures, prepare
+from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.units import parse_quantity
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -11,8 +11,8 @@ from mcmatch.config.schema import load_config
 from mcmatch.config.templates import format_quantity, netlist_toml
 from mcmatch.errors import ConfigError, SolveError
 from mcmatch.model.operating_point import LOW_HEADROOM, device_operating_points, warnings_for
-from mcmatch.run.engine import nominal_measures, prepare
 from mcmatch.run.multistart import other_operating_points, several_points_warning
+from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.units import UnitError, parse_quantity
 
 COLUMNS = (

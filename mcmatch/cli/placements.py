@@ -35,7 +35,7 @@ def _percent_or_si(value: float | None, unit: str) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from mcmatch.run.engine import prepare
+    from mcmatch.run.study import prepare
     from mcmatch.studies.extra import run_placements
 
     check_overrides(Placement, samples=args.samples)

@@ -477,7 +477,7 @@ def _nominal_output_currents(
     """Currents [A] the outputs carry when held at their output voltages, no mismatch, nominal corner."""
     from mcmatch.model.circuit import compile_circuit  # solving needs the layers below; imported only here
     from mcmatch.model.technology import device_parameters
-    from mcmatch.run.engine import nominal_point
+    from mcmatch.run.study import nominal_point
 
     temperature = technology.nominal_temperature if temperature is None else temperature
     held = Netlist.model_validate(netlist)

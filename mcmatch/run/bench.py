@@ -20,7 +20,8 @@ from scipy import optimize
 from mcmatch.config.schema import Config, config_from_dict
 from mcmatch.draws.mismatch import mismatch_from_normals, perturbed, standard_normals
 from mcmatch.model.circuit import residual_jacobian
-from mcmatch.run.engine import Study, chunk_ranges, prepare, run_chunk, solve_unknowns
+from mcmatch.run.chunks import chunk_ranges, run_chunk
+from mcmatch.run.study import Study, prepare, solve_unknowns
 from mcmatch.solve.measures import mna_measures
 
 #: Illustrative 180 nm-class technology, INVENTED VALUES (same spirit as configs/technologies/demo180.toml).

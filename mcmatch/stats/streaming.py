@@ -370,7 +370,7 @@ class ChunkPartial:
 
 @dataclass(frozen=True)
 class ChunkReducer:
-    """Picklable: turns one chunk's columns (engine.run_chunk) into a ChunkPartial, in the worker that solved it.
+    """Picklable: turns one chunk's columns (run.chunks.run_chunk) into a ChunkPartial, in the worker that solved it.
 
     measures: measure names; specs: {measure: Limits}; keep: rows with sample index < keep are returned whole;
     grids: {measure: Grid} for the quantile histograms (None: no histogram, quantiles come from kept rows);

@@ -1,7 +1,7 @@
 """The analyses beyond the main Monte Carlo run: yield extras, corners, area versus accuracy, mismatch contributions.
 
 :func:`run_analyses` works from the main run's summary (measure statistics, yield counts) and its own solves; it
-never reads the main run's sample rows. Each study below solves its conditions through :mod:`mcmatch.run.engine` and
+never reads the main run's sample rows. Each study below solves its conditions through :mod:`mcmatch.run` and
 hands the tables to the matching :mod:`mcmatch.analysis` module.
 """
 
@@ -14,7 +14,8 @@ import numpy as np
 from mcmatch.config.schema import Config
 from mcmatch.errors import SolveError
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
-from mcmatch.run.engine import POOL_THRESHOLD, Study, monte_carlo, nominal_measures, prepare
+from mcmatch.run.chunks import POOL_THRESHOLD, monte_carlo
+from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.area import (
     SEARCH_SPAN,
     fit_sigma,

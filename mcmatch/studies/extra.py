@@ -3,7 +3,7 @@
 :func:`run_extra_analyses` adds the summary keys ``placements`` and ``placement_best`` (when the config has a
 ``[placement]`` table), ``high_sigma`` (with ``[analysis.high_sigma]`` and specs) and ``bank`` (with
 ``[analysis.bank]``, or when two or more spec'd ratio measures share one reference). Each study makes its own solves
-through :mod:`mcmatch.run.engine` and never reads the main run's sample rows; the arithmetic lives in
+through :mod:`mcmatch.run.study` and never reads the main run's sample rows; the arithmetic lives in
 :mod:`mcmatch.draws.placement`, :mod:`mcmatch.stats.high_sigma` and :mod:`mcmatch.stats.bank`.
 """
 
@@ -28,7 +28,7 @@ from mcmatch.draws.placement import (
 )
 from mcmatch.errors import SolveError
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_sigmas
-from mcmatch.run.engine import Study, nominal_measures, nominal_point, solve_samples
+from mcmatch.run.study import Study, nominal_measures, nominal_point, solve_samples
 from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.bank import bank_yield, channel_passes, mean_correlation
 from mcmatch.stats.describe import describe

@@ -13,19 +13,11 @@ import pandas as pd
 
 from mcmatch import __version__
 from mcmatch.config.schema import Config
-from mcmatch.draws.mismatch import SOBOL_SCRAMBLINGS
+from mcmatch.draws.mismatch import BLOCK, SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.results.tables import to_frame
-from mcmatch.run.engine import (
-    BLOCK,
-    CHUNK_QUANTUM,
-    Study,
-    nominal_measures,
-    prepare,
-    resolve_jobs,
-    run_chunk,
-    stream_chunks,
-)
+from mcmatch.run.chunks import CHUNK_QUANTUM, resolve_jobs, run_chunk, stream_chunks
+from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.describe import describe
 from mcmatch.stats.streaming import (
     HISTOGRAM_BINS,
@@ -50,7 +42,7 @@ class RunOptions:
     backend: str | None = None
     progress: Callable[[int], None] | None = None
     keep_samples: int | None = None  # rows kept for the table; None: config analysis.keep_samples
-    chunk_size: int | None = None  # samples per chunk (rounded to engine.CHUNK_QUANTUM); None: engine's choice
+    chunk_size: int | None = None  # samples per chunk (rounded to chunks.CHUNK_QUANTUM); None: chunks' choice
 
 
 @dataclass
