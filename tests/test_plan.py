@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -68,3 +70,55 @@ def test_independent_blocks_follow_their_first_unknown():
     # the order of their unknowns, so the order (and with it every sample's bits) does not depend on the graph library
     pattern = {(0, 0), (1, 1), (2, 2), (3, 3), (3, 0), (2, 0), (1, 0)}
     assert block_order(4, pattern) == [([0], [0]), ([1], [1]), ([2], [2]), ([3], [3])]
+
+
+def test_both_solved_points_give_the_same_measures():
+    # Common practice, no source: the fast path's reduced point (KCL for the grounded sources' currents, the
+    # diagonal block of the Jacobian for a node's resistance) and the full MNA point (branch-current unknowns, the
+    # dense Jacobian) are two views of one solution, so the one evaluator must give the same numbers from both.
+    # Circuit invented for the test: a diode, a degenerated output into a resistor, a floating voltage source.
+    from mcmatch.config.schema import Measure, config_from_dict
+    from mcmatch.run.study import fast_plan, prepare
+    from mcmatch.solve.fast import expand_unknowns, fast_newton
+    from mcmatch.solve.measures import ReducedPoint, evaluate_measures
+    from mcmatch.solve.reference import solve_reference
+
+    nmos = {"type": "nmos", "w": "4 um", "l": "2 um"}
+    raw = {
+        "technology": "technologies/demo180.toml",
+        "circuit": {
+            "mosfet": [
+                {"name": "M1", "drain": "a", "gate": "a", "source": "gnd", **nmos},
+                {"name": "M2", "drain": "b", "gate": "a", "source": "s", **nmos},
+            ],
+            "current_source": [{"name": "I1", "from": "vdd", "to": "a", "value": "10 uA"}],
+            "resistor": [
+                {"name": "R1", "a": "s", "b": "gnd", "value": "5 kohm"},
+                {"name": "R2", "a": "b", "b": "c", "value": "20 kohm"},
+            ],
+            "voltage_source": [
+                {"name": "VDD", "plus": "vdd", "minus": "gnd", "value": "1.8 V"},
+                {"name": "VF", "plus": "vdd", "minus": "c", "value": "0.5 V"},
+            ],
+        },
+    }
+    config = config_from_dict(raw, Path(__file__).resolve().parents[1] / "configs" / "demo.toml")
+    measures = {f"i_{n}": Measure(current=n) for n in ("M1", "M2", "I1", "R1", "R2", "VDD", "VF")}
+    measures |= {f"v_{n}": Measure(voltage=n) for n in config.circuit.nodes}
+    measures |= {f"r_{n}": Measure(resistance=n) for n in config.circuit.nodes}
+    measures["ratio"] = Measure(ratio=("M2", "M1"), ideal=1.0)
+    study = prepare(config.model_copy(update={"measures": measures}))
+    plan = fast_plan(study)
+    assert plan is not None and len(plan.blocks) > 1  # the fast path, with a block-triangular split, is under test
+    rng = np.random.default_rng(7)
+    p = study.circuit.params
+    dvth, dbeta = rng.normal(0, 5e-3, (p.count, 64)), rng.normal(0, 0.01, (p.count, 64))
+    sol = fast_newton(plan, dvth, dbeta)
+    assert sol.converged.all()
+    fast = evaluate_measures(study.circuit, measures, ReducedPoint(plan, sol.u, sol.vth, sol.beta, sol.currents))
+    # the MNA Newton, started at the fast solution, finds the branch currents from its own equations
+    start = expand_unknowns(plan, sol.u, sol.vth, sol.beta)
+    full = solve_reference(study.circuit, measures, study.x_nominal, dvth.T, dbeta.T, x0=start)
+    assert full["converged"].all()
+    for key in measures:
+        np.testing.assert_allclose(fast[key], full[key], rtol=1e-9, atol=1e-15, err_msg=key)
