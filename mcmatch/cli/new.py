@@ -74,6 +74,7 @@ MEASURE_MEANINGS = {
     "voltage": "node voltage to gnd [V]",
     "ratio": "ratio error against the ideal ratio [fraction]",
     "resistance": "small-signal resistance from the node to gnd [ohm]",
+    "port_resistance": "small-signal resistance seen by the voltage source, dV/dI [ohm]",
 }
 
 

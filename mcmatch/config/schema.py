@@ -21,7 +21,8 @@ from mcmatch.units import UnitError, parse_quantity
 
 GROUND = "gnd"
 
-MEASURE_UNITS = {"current": "A", "voltage": "V", "ratio": "1", "resistance": "ohm"}
+MEASURE_UNITS = {"current": "A", "voltage": "V", "ratio": "1", "resistance": "ohm", "port_resistance": "ohm"}
+MEASURE_KINDS = tuple(MEASURE_UNITS)
 
 
 def _quantity(value: object, unit: str) -> float:
@@ -212,19 +213,20 @@ def terminals(element: Frozen) -> list[str]:
 
 # --------------------------------------------------------------------------------------------- measures, specs
 class Measure(Frozen):
-    """What is recorded per sample: exactly one of current, voltage, ratio, resistance."""
+    """What is recorded per sample: exactly one of current, voltage, ratio, resistance, port_resistance."""
 
     current: Name | None = None
     voltage: Name | None = None
     ratio: tuple[Name, Name] | None = None
     ideal: Number | None = None
     resistance: Name | None = None
+    port_resistance: Name | None = None  # a voltage source: dV/dI looking into the circuit [ohm]
 
     @model_validator(mode="after")
     def _exactly_one(self) -> Measure:
-        given = [k for k in ("current", "voltage", "ratio", "resistance") if getattr(self, k) is not None]
+        given = [k for k in MEASURE_KINDS if getattr(self, k) is not None]
         if len(given) != 1:
-            raise ValueError("a measure needs exactly one of 'current', 'voltage', 'ratio', 'resistance'")
+            raise ValueError(f"a measure needs exactly one of {', '.join(repr(k) for k in MEASURE_KINDS)}")
         if self.ideal is not None and self.ratio is None:
             raise ValueError("'ideal' belongs to a ratio measure")
         if self.ideal is not None and not 1e-9 <= abs(self.ideal) <= 1e9:
@@ -233,7 +235,7 @@ class Measure(Frozen):
 
     @property
     def kind(self) -> str:
-        for k in ("current", "voltage", "ratio", "resistance"):
+        for k in MEASURE_KINDS:
             if getattr(self, k) is not None:
                 return k
         raise AssertionError
@@ -749,6 +751,10 @@ def check_measures(measures: dict[str, Measure], netlist: Netlist, file: str) ->
             raise ConfigError(_unknown("node", measure.voltage, nodes), file=file, key=f"{path}.voltage")
         if measure.resistance is not None and measure.resistance not in nodes:
             raise ConfigError(_unknown("node", measure.resistance, nodes), file=file, key=f"{path}.resistance")
+        sources = {v.name for v in netlist.voltage_source}
+        if measure.port_resistance is not None and measure.port_resistance not in sources:
+            what = _unknown("voltage source", measure.port_resistance, sources)
+            raise ConfigError(what, file=file, key=f"{path}.port_resistance")
 
 
 def _unknown(kind: str, name: str, known: set[str]) -> str:

@@ -10,10 +10,11 @@ nodes ``out1`` ...; reference current ``IREF``; supply ``VDD`` on node ``vdd``; 
 (or load current sources ``ILOAD1`` ... with ``output_load = "current"``). A pmos template is the mirror image: its
 sources sit at ``vdd`` and its reference current flows out of ``nb`` to ``gnd``.
 
-Default measures: ``i_out<k>`` (output current [A]), ``err<k>`` (ratio error against the ideal ratio [1]), ``v_nb``
-and ``r_nb`` (voltage [V] and small-signal resistance [ohm] of node ``nb``). With a current load the output current
-is forced, so ``v_out<k>`` and ``r_out<k>`` (output voltage and output resistance) replace ``i_out<k>`` and
-``err<k>``. Measures given in the config override these by name.
+Default measures: ``i_out<k>`` (output current [A]), ``err<k>`` (ratio error against the ideal ratio [1]),
+``r_out<k>`` (output resistance [ohm]: the port resistance seen by ``VOUT<k>``), ``v_nb`` and ``r_nb`` (voltage [V]
+and small-signal resistance [ohm] of node ``nb``). With a current load the output current is forced, so ``v_out<k>``
+(output voltage) replaces ``i_out<k>`` and ``err<k>``, and ``r_out<k>`` is the node resistance of ``out<k>``.
+Measures given in the config override these by name.
 """
 
 from __future__ import annotations
@@ -440,6 +441,7 @@ def _default_measures(template: Template, params: TemplateParameters) -> dict[st
             if params.output_load == "voltage":
                 measures[f"i_out{k}"] = Measure(current=f"MOUT{k}")
                 measures[f"err{k}"] = Measure(ratio=(f"MOUT{k}", "IREF"), ideal=float(ratio))
+                measures[f"r_out{k}"] = Measure(port_resistance=f"VOUT{k}")
             else:
                 measures[f"v_out{k}"] = Measure(voltage=f"out{k}")
                 measures[f"r_out{k}"] = Measure(resistance=f"out{k}")

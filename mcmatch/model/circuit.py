@@ -221,7 +221,8 @@ def evaluate_measures(
     beta: np.ndarray,
     jac: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
-    """Every measure at solved unknowns x (S, n): currents [A], voltages [V], ratio errors [1], resistances [ohm]."""
+    """Every measure at solved unknowns x (S, n): currents [A], voltages [V], ratio errors [1], node and port
+    resistances [ohm]."""
     xe = extend(x)
     out: dict[str, np.ndarray] = {}
     for key, measure in measures.items():
@@ -238,6 +239,11 @@ def evaluate_measures(
         else:
             if jac is None:
                 _, jac = residual_jacobian(circuit, x, vth, beta)
+            if measure.port_resistance is not None:
+                from mcmatch.model.small_signal import port_resistance  # it builds on this module
+
+                out[key] = port_resistance(circuit, jac, measure.port_resistance)
+                continue
             out[key] = node_resistance(jac, circuit.node_index(measure.resistance))
     return out
 

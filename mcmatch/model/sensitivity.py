@@ -20,6 +20,7 @@ from scipy.special import expit
 from mcmatch.config.schema import Measure
 from mcmatch.model.circuit import Circuit, extend, mosfet_currents, residual_jacobian
 from mcmatch.model.devices import PHI_CLAMP_FRACTION
+from mcmatch.model.small_signal import branch_unknown, port_resistance
 from mcmatch.model.technology import EKV
 
 VTH = "vth"
@@ -231,6 +232,10 @@ def measure_sensitivities(
             den, dden = _current_and_gradient(circuit, xe, dxe, measure.ratio[1])
             ideal = 1.0 if measure.ideal is None else measure.ideal
             out[key] = (dnum / den - num * dden / den**2) / ideal if den != 0 else None
+        elif measure.port_resistance is not None:  # r = 1 / (e_b^T J^-1 e_b): dr = -r^2 d(e_b^T J^-1 e_b)
+            b = branch_unknown(circuit, measure.port_resistance)
+            r = port_resistance(circuit, residual_jacobian(circuit, *_nominal(circuit, x))[1], measure.port_resistance)
+            out[key] = -(float(r[0]) ** 2) * resistance_sensitivity(circuit, x, b)
         else:
             out[key] = resistance_sensitivity(circuit, x, circuit.node_index(measure.resistance))
     return out

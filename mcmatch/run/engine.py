@@ -37,6 +37,7 @@ from mcmatch.model.circuit import (
 from mcmatch.model.technology import device_parameters
 from mcmatch.run.workers import Watched
 from mcmatch.solve.newton import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
+from mcmatch.solve.ports import reduced_port_resistances
 
 #: Below this many samples a run stays in-process: starting a pool (POOL_STARTUP_S) costs more than it saves on 2
 #: cores. Measured with the fast path: a 2-worker pool pays from about 1.5e7 simple-mirror or 1e7 cascode samples.
@@ -722,6 +723,11 @@ def fast_measures(study: Study, plan: FastPlan, sol: FastSolution) -> dict[str, 
             ideal = 1.0 if measure.ideal is None else measure.ideal
             with np.errstate(divide="ignore", invalid="ignore"):
                 out[key] = current(measure.ratio[0]) / current(measure.ratio[1]) / ideal - 1.0
+        elif measure.port_resistance is not None:  # every port at once (solve/ports.py)
+            if "ports" not in cache:
+                ports = [m.port_resistance for m in study.measures.values() if m.port_resistance is not None]
+                cache["ports"] = reduced_port_resistances(reduced, u, vth, beta, ports, plan.u_nominal)
+            out[key] = cache["ports"][measure.port_resistance]
         else:
             r = reduced.position[circuit.node_index(measure.resistance)]
             if r < 0:  # a node held by voltage sources: shorted for small signals
