@@ -27,6 +27,7 @@ from mcmatch.model.circuit import (
     compile_circuit,
     device_state,
     evaluate_measures,
+    extend,
     reduce_circuit,
     reduce_unknowns,
     reduced_residual_jacobian,
@@ -34,6 +35,7 @@ from mcmatch.model.circuit import (
     restrict,
     voltage_mask,
 )
+from mcmatch.model.headroom import HEADROOM_COLUMN, min_headroom, mna_terminal, reduced_terminal
 from mcmatch.model.technology import device_parameters
 from mcmatch.run.workers import Watched
 from mcmatch.solve.newton import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
@@ -260,6 +262,7 @@ def solve_samples_mna(
     out: dict[str, np.ndarray] = {}
     for v in values.values():
         ok &= np.isfinite(v)
+    values[HEADROOM_COLUMN] = min_headroom(circuit, mna_terminal(extend(result.x)), vth.T, beta.T, len(ok))
     for key, v in values.items():
         out[key] = np.where(ok, v, np.nan)
     out["converged"] = ok
@@ -590,6 +593,8 @@ def solve_fast(study: Study, plan: FastPlan, dvth: np.ndarray, dbeta: np.ndarray
     n_samples = dvth.shape[1]
     sol = _fast_newton(study, plan, dvth, dbeta)
     out = fast_measures(study, plan, sol)
+    terminal = reduced_terminal(plan.reduced, sol.u)  # model/headroom.py: the smallest Vds - Vdsat per sample
+    out[HEADROOM_COLUMN] = min_headroom(study.circuit, terminal, sol.vth, sol.beta, n_samples)
     free = [r for r in (plan.reduced.position[node] for node in range(study.circuit.n_nodes)) if r >= 0]
     ok = sol.converged & within_rails(study, sol.u[free].T)
     for key in study.measures:
@@ -602,13 +607,13 @@ def solve_fast(study: Study, plan: FastPlan, dvth: np.ndarray, dbeta: np.ndarray
         again = solve_samples_mna(
             study, np.ascontiguousarray(dvth[:, retry].T), np.ascontiguousarray(dbeta[:, retry].T)
         )
-        for key in study.measures:
+        for key in (*study.measures, HEADROOM_COLUMN):
             out[key][retry] = again[key]
         out["converged"][retry] = again["converged"]
         out["iterations"][retry] += again["iterations"]
         out["retried"][retry] = True
     if not out["converged"].all():
-        for key in study.measures:
+        for key in (*study.measures, HEADROOM_COLUMN):
             out[key] = np.where(out["converged"], out[key], np.nan)
     return out
 

@@ -13,6 +13,7 @@ import numpy as np
 
 from mcmatch.config.schema import Config
 from mcmatch.errors import SolveError
+from mcmatch.model.operating_point import device_operating_points
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
 from mcmatch.run.engine import POOL_THRESHOLD, Study, monte_carlo, nominal_measures, prepare
 from mcmatch.stats.area import (
@@ -24,6 +25,7 @@ from mcmatch.stats.area import (
     minimum_area,
     scaled_netlist,
 )
+from mcmatch.stats.compliance import compliance_of_columns
 from mcmatch.stats.contributions import contribution_table
 from mcmatch.stats.corners import corner_entry, corner_grid, error_entry, worst_corners
 from mcmatch.stats.describe import describe
@@ -73,6 +75,7 @@ def run_corners(config: Config, summary: dict, options: Options | None = None) -
         guess = study.x_nominal
         columns = _mc(study, samples, options)
         entries.append(corner_entry(point, nominal_measures(study), columns, config.specs))
+        entries[-1]["compliance"] = compliance_of_columns(device_operating_points(study.circuit, guess), columns)
     return entries, worst_corners(entries, summary["measures"], config.specs)
 
 

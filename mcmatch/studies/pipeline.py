@@ -26,6 +26,7 @@ from mcmatch.run.engine import (
     run_chunk,
     stream_chunks,
 )
+from mcmatch.stats.compliance import compliance_block
 from mcmatch.stats.describe import describe
 from mcmatch.stats.streaming import (
     HISTOGRAM_BINS,
@@ -193,6 +194,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
             "machine": f"{platform.system()} {platform.machine()}, {platform.node()}",
         },
     }
+    summary["compliance"] = compliance_block(summary["operating_point"], stats.out_of_saturation, stats.samples)
     # analyses (corners, area, contributions, yield extras) work from the summary, never from raw main-run rows
     from mcmatch.studies.analyses import run_analyses  # local: keeps this hook a one-place edit
 
