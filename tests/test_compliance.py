@@ -151,3 +151,15 @@ def test_designer_case_names_the_cascode_and_its_corner(tmp_path, capsys):
     assert "MCAS1" in line and line.rstrip().endswith("MCAS1")
     tt_line = next(row for row in text.splitlines() if row.startswith("tt") and "1.08 V" in row)
     assert tt_line.rstrip().endswith("none")
+
+
+@pytest.mark.parametrize("name", ["min_headroom", "converged", "dvth_MREF"])
+def test_a_measure_may_not_take_a_sample_table_column(name):
+    # DESIGN.md section 3: invalid input is refused naming file and key (the column would overwrite the measure)
+    from mcmatch.errors import ConfigError
+
+    with pytest.raises(ConfigError) as info:
+        _config(
+            {"technology": TECH180, "circuit": {"template": "simple_mirror"}, "measures": {name: {"voltage": "nb"}}}
+        )
+    assert info.value.key == f"measures.{name}" and "column" in str(info.value)

@@ -23,6 +23,8 @@ GROUND = "gnd"
 
 MEASURE_UNITS = {"current": "A", "voltage": "V", "ratio": "1", "resistance": "ohm", "port_resistance": "ohm"}
 MEASURE_KINDS = tuple(MEASURE_UNITS)
+#: Sample-table columns written beside the measures (and dvth_<device>, dbeta_<device>): no measure may take them.
+RESERVED_COLUMNS = ("sample", "converged", "iterations", "retried", "min_headroom")
 
 
 def _quantity(value: object, unit: str) -> float:
@@ -741,6 +743,10 @@ def check_measures(measures: dict[str, Measure], netlist: Netlist, file: str) ->
     nodes = set(netlist.nodes)
     for key, measure in measures.items():
         path = f"measures.{key}"
+        if key in RESERVED_COLUMNS or key.startswith(("dvth_", "dbeta_")):
+            raise ConfigError(
+                f"'{key}' is a column the sample table already has; name the measure otherwise", file, path
+            )
         if measure.current is not None and measure.current not in names:
             raise ConfigError(_unknown("device", measure.current, names), file=file, key=f"{path}.current")
         if measure.ratio is not None:

@@ -13,12 +13,14 @@ from collections.abc import Callable
 
 import numpy as np
 
+from mcmatch.config.schema import RESERVED_COLUMNS
 from mcmatch.model.circuit import Circuit, ReducedCircuit
 from mcmatch.model.devices import ekv, ekv_inversion_coefficient, square_law_threshold
 from mcmatch.model.technology import EKV
 
-#: Column of the per-sample smallest headroom [V] in the engine's sample tables.
+#: Column of the per-sample smallest headroom [V] in the engine's sample tables (a reserved name, config/schema.py).
 HEADROOM_COLUMN = "min_headroom"
+assert HEADROOM_COLUMN in RESERVED_COLUMNS
 
 Terminal = Callable[[int], "np.ndarray | float"]
 
