@@ -56,11 +56,8 @@ def device_operating_points(circuit: Circuit, x: np.ndarray) -> list[dict]:
     derived from the same formula with the technology's slope factor, the square law itself having no weak
     inversion), vgs, vds, vsb, vth (with body effect), vov = vgs - vth, vdsat, headroom = vds - vdsat [V],
     id [A], gm, gds, gmb [S] (the device's analytic derivatives; the solver's GMIN across the channel is not in gds),
-    gm_id [1/V] (None where the current is zero).
-
-    Square law: vdsat = vov (clipped at 0); cutoff for vov <= 0. EKV: the threshold seen from the source is
-    vth0 + (n - 1) vsb; vdsat = 2 U_T sqrt(IC + 0.25) + 3 U_T, the usual moderate-inversion estimate; cutoff for
-    IC < EKV_CUTOFF_IC. Triode when vds < vdsat, else saturation.
+    gm_id [1/V] (None where the current is zero). Thresholds, vdsat and regions are the device model's own
+    (:class:`mcmatch.model.devices.DevicePoint`).
     """
     p = circuit.params
     xe = np.append(np.asarray(x, dtype=float).reshape(-1), 0.0)
