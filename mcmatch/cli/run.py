@@ -19,8 +19,12 @@ from mcmatch.run.cluster import cluster_session, parse_address, worker_threads
 from mcmatch.studies.pipeline import RunOptions, run_study
 
 
-def add_parser(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("run", help="run the Monte Carlo study of a config and write summary, samples and report")
+def add_parser(
+    sub: argparse._SubParsersAction,
+    name: str = "run",
+    help: str = "run the Monte Carlo study of a config and write summary, samples and report",  # noqa: A002
+) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=help)
     p.add_argument("config", help="circuit config (TOML)")
     p.add_argument("--samples", type=int, help="Monte Carlo samples (overrides analysis.samples)")
     p.add_argument("--seed", type=int, help="random seed (overrides analysis.seed)")
@@ -68,6 +72,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help="time allowed to reach the scheduler and check its workers (default 10)",
     )
     p.set_defaults(execute=execute)
+    return p
 
 
 def execute(args: argparse.Namespace) -> int:

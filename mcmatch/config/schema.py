@@ -312,6 +312,27 @@ class Bank(Frozen):
     samples: int | None = Field(default=None, ge=10, le=100_000_000)
 
 
+class SizingStudy(Frozen):
+    """[analysis.sizing]: W and L of device groups for the joint-yield target under a headroom limit (SI units)."""
+
+    groups: dict[Name, list[Name]] | None = None  # devices sharing one unit W and L; default: equal W and L
+    w: list[Q("m")] = Field(min_length=2, max_length=2)  # search range of the unit W [m]
+    l: list[Q("m")] = Field(min_length=2, max_length=2)  # noqa: E741 - search range of the unit L [m]
+    min_headroom: Q("V") = Field(default=0.05, ge=-10, le=10)  # Vds - Vdsat of every device at every corner [V]
+    max_area: Q("m^2") | None = Field(default=None, gt=0, le=1.0)  # total gate area allowed [m^2]
+    aspects: int = Field(default=7, ge=2, le=64)  # W/L grid points per group before refinement
+    samples: int = Field(default=20000, ge=100, le=100_000_000)  # confirming Monte Carlo samples
+    max_confirmations: int = Field(default=3, ge=1, le=20)
+
+    @model_validator(mode="after")
+    def _ranges(self) -> SizingStudy:
+        for key in ("w", "l"):
+            low, high = getattr(self, key)
+            if not 0 < low < high <= 0.1:
+                raise ValueError(f"'{key}' must be [minimum, maximum] with 0 < minimum < maximum <= 10 cm")
+        return self
+
+
 class Analysis(Frozen):
     samples: int = Field(default=10000, ge=1, le=10_000_000_000)
     seed: int = Field(default=1, ge=0, le=2**63 - 1)
@@ -322,6 +343,7 @@ class Analysis(Frozen):
     area: AreaStudy | None = None
     high_sigma: HighSigma | None = None
     bank: Bank | None = None
+    sizing: SizingStudy | None = None
     contributions: bool = True
 
 
@@ -797,11 +819,31 @@ def check_analysis(analysis: Analysis, netlist: Netlist, technology: Technology,
                     file=file,
                     key="analysis.corners.supply_source",
                 )
+    if analysis.sizing is not None:
+        check_sizing(analysis.sizing, netlist, file)
     if analysis.area is not None:
         mosfets = {m.name for m in netlist.mosfet}
         for i, name in enumerate(analysis.area.devices):
             if name not in mosfets:
                 raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=f"analysis.area.devices[{i}]")
+
+
+def check_sizing(sizing: SizingStudy, netlist: Netlist, file: str) -> None:
+    """Sizing groups name MOSFETs, each in at most one group."""
+    mosfets = {m.name for m in netlist.mosfet}
+    seen: dict[str, str] = {}
+    for group, names in (sizing.groups or {}).items():
+        if not names:
+            raise ConfigError(
+                "a sizing group needs at least one MOSFET", file=file, key=f"analysis.sizing.groups.{group}"
+            )
+        for i, name in enumerate(names):
+            key = f"analysis.sizing.groups.{group}[{i}]"
+            if name not in mosfets:
+                raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=key)
+            if name in seen:
+                raise ConfigError(f"'{name}' is already in group '{seen[name]}'", file=file, key=key)
+            seen[name] = group
 
 
 def check_placement(placement: Placement | None, netlist: Netlist, file: str) -> None:
@@ -815,7 +857,13 @@ def check_placement(placement: Placement | None, netlist: Netlist, file: str) ->
 
 
 def check_spec_references(analysis: Analysis, specs: dict[str, Limits], file: str) -> None:
-    """Names in [analysis.high_sigma] and [analysis.bank] must be spec'd measures."""
+    """Names in [analysis.high_sigma] and [analysis.bank] must be spec'd measures; sizing needs specs."""
+    if analysis.sizing is not None and not specs:
+        raise ConfigError(
+            "sizing aims at the joint yield of the specs; add [specs] on the measures the design must meet",
+            file=file,
+            key="analysis.sizing",
+        )
     for table in ("high_sigma", "bank"):
         study = getattr(analysis, table, None)
         if study is None:
