@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.config.templates import TEMPLATES, expand_template, format_quantity, unit_counts
 from mcmatch.errors import ConfigError
 from mcmatch.model.circuit import GMIN

@@ -7,7 +7,7 @@ import json
 
 import numpy as np
 
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.config.templates import format_quantity, netlist_toml
 from mcmatch.errors import ConfigError, SolveError
 from mcmatch.model.operating_point import LOW_HEADROOM, device_operating_points, warnings_for

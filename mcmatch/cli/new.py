@@ -9,7 +9,8 @@ import tomllib
 from pathlib import Path
 
 import mcmatch
-from mcmatch.config.schema import Measure, Netlist, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Measure, Netlist
 from mcmatch.config.templates import (
     DEFAULT_WIDTH,
     TEMPLATES,

@@ -27,7 +27,8 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError
 
-from mcmatch.config.schema import GROUND, Measure, Netlist, Q, Technology, validation_to_config_error
+from mcmatch.config.loading import validation_to_config_error
+from mcmatch.config.schema import GROUND, Measure, Netlist, Q, Technology
 from mcmatch.errors import ConfigError, SolveError
 
 #: Largest number of unit devices in the reference that a ratio may need (ratio 1/3 needs 3).
