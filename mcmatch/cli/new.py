@@ -15,7 +15,6 @@ from mcmatch.config.templates import (
     DEFAULT_WIDTH,
     TEMPLATES,
     expand_template,
-    format_quantity,
     get_template,
     netlist_toml,
     parameter_names,
@@ -23,6 +22,7 @@ from mcmatch.config.templates import (
 )
 from mcmatch.errors import ConfigError
 from mcmatch.results.folder import check_output_file
+from mcmatch.units import format_quantity
 
 #: The technology library beside the package in a source checkout (configs/technologies/NAME.toml).
 TECHNOLOGY_LIBRARY = Path(mcmatch.__file__).resolve().parent.parent / "configs" / "technologies"

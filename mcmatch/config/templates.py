@@ -30,6 +30,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationEr
 from mcmatch.config.loading import validation_to_config_error
 from mcmatch.config.schema import GROUND, Measure, Netlist, Q, Technology
 from mcmatch.errors import ConfigError, SolveError
+from mcmatch.units import format_quantity
 
 #: Largest number of unit devices in the reference that a ratio may need (ratio 1/3 needs 3).
 MAX_REFERENCE_UNITS = 100
@@ -529,22 +530,6 @@ def parameter_rows(name: str) -> list[tuple[str, str, str]]:
         default = info.default
         rows.append((field_name, toml_value(default) if default is not None else "", info.description or ""))
     return rows
-
-
-_PREFIXES = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"), (1e-12, "p")]
-
-
-def format_quantity(value: float, unit: str, digits: int = 6) -> str:
-    """An SI value as a quantity string with an engineering prefix: 4e-06, "m" -> "4 um" (parses back exactly)."""
-    if value == 0 or not math.isfinite(value):
-        return f"{value:g} {unit}"
-    magnitude = abs(value)
-    if unit == "V" and 0.1 <= magnitude < 1000:  # node voltages read best in volts
-        return f"{float(f'{value:.{digits}g}'):.{digits}g} V"
-    scale, prefix = next(((s, p) for s, p in _PREFIXES if magnitude >= s * 0.9999999), _PREFIXES[-1])
-    number = float(f"{value / scale:.{digits}g}")
-    text = f"{number:.{digits}g}"
-    return f"{text} {prefix}{unit}"
 
 
 def toml_value(value: object) -> str:
