@@ -8,6 +8,7 @@ from __future__ import annotations
 import difflib
 
 from mcmatch.config.schema import (
+    AUTO,
     GROUND,
     Analysis,
     Limits,
@@ -56,9 +57,17 @@ def check_netlist(netlist: Netlist, technology: Technology, file: str) -> None:
     for i, r in enumerate(netlist.resistor):
         if r.a == r.b:
             raise ConfigError("both ends on the same node", file=file, key=f"circuit.resistor[{i}].b")
+    sized = set(netlist.load_sizing.loads) if netlist.load_sizing is not None else set()
     for i, c in enumerate(netlist.current_source):
         if c.from_ == c.to:
             raise ConfigError("both ends on the same node", file=file, key=f"circuit.current_source[{i}].to")
+        if c.value == AUTO and c.name not in sized:
+            raise ConfigError(
+                f"expected a quantity in A such as '10 uA', got '{AUTO}' (only a template's current loads are sized "
+                "automatically)",
+                file=file,
+                key=f"circuit.current_source[{i}].value",
+            )
 
     # loops of voltage sources, by union-find over their terminals
     parent: dict[str, str] = {}

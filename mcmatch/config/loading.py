@@ -21,7 +21,7 @@ from mcmatch.config.checks import (
     check_spec_references,
     parse_specs,
 )
-from mcmatch.config.schema import Config, Measure, Netlist, RawConfig, Technology
+from mcmatch.config.schema import FROM_TEMPLATE, Config, Measure, Netlist, RawConfig, Technology
 from mcmatch.errors import ConfigError, quote
 
 
@@ -185,13 +185,15 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
     technology, tech_path, tech_text = load_technology(parsed.technology, path)
     circuit_raw = dict(parsed.circuit)
     measures = dict(parsed.measures)
+    context = None
     if "template" in circuit_raw:
         from mcmatch.config.templates import expand_template  # templates build on config's types
 
-        circuit_raw, default_measures = expand_template(circuit_raw, file, technology, parsed.temperature)
+        circuit_raw, default_measures = expand_template(circuit_raw, file)
         measures = {**default_measures, **measures}
+        context = FROM_TEMPLATE if "load_sizing" in circuit_raw else None  # loads sized when a run starts
     try:
-        netlist = Netlist.model_validate(circuit_raw)
+        netlist = Netlist.model_validate(circuit_raw, context=context)
     except ValidationError as exc:
         raise validation_to_config_error(exc, file, Netlist, prefix="circuit") from None
     check_netlist(netlist, technology, file)

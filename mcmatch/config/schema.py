@@ -13,7 +13,18 @@ import math
 from functools import partial
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    ValidationInfo,
+    ValidatorFunctionWrapHandler,
+    WrapValidator,
+    field_validator,
+    model_validator,
+)
 
 from mcmatch.errors import quote
 from mcmatch.units import UnitError, parse_quantity
@@ -149,11 +160,25 @@ class Mosfet(Frozen):
         return GROUND if self.type == "nmos" else self.source
 
 
+#: The value of a template's load current source until the run layer sizes it (:mod:`mcmatch.run.loads`).
+AUTO = "auto"
+#: Validation context under which a netlist may hold AUTO values and a load sizing: a template's expansion only.
+FROM_TEMPLATE = {"from_template": True}
+
+
+def _current_or_auto(value: object, handler: ValidatorFunctionWrapHandler, info: ValidationInfo) -> object:
+    """AUTO where a template put it (validated under FROM_TEMPLATE); otherwise a current [A] as usual."""
+    if value == AUTO and (info.context or {}).get("from_template"):
+        return AUTO
+    return handler(value)
+
+
 class CurrentSource(Frozen):
     name: Name
     from_: Name = Field(alias="from")
     to: Name
-    value: Q("A") = Field(ge=-100, le=100)
+    #: [A], or AUTO for a template's load current until it is sized (config loading never solves)
+    value: Annotated[Q("A"), WrapValidator(_current_or_auto)] = Field(ge=-100, le=100)
 
 
 class VoltageSource(Frozen):
@@ -176,6 +201,19 @@ class Netlist(Frozen):
     voltage_source: list[VoltageSource] = Field(default_factory=list)
     resistor: list[Resistor] = Field(default_factory=list)
     template: str | None = None  # the template this netlist was expanded from, if any
+    load_sizing: LoadSizing | None = None  # how a template's AUTO load currents are sized (set by templates only)
+
+    @field_validator("load_sizing", mode="before")
+    @classmethod
+    def _only_from_template(cls, value: object, info: ValidationInfo) -> object:
+        if value is not None and not (info.context or {}).get("from_template"):
+            raise ValueError('set only by a circuit template (output_load = "current"), never in a config')
+        return value
+
+    @property
+    def auto_sources(self) -> list[str]:
+        """Names of the current sources whose value is still AUTO."""
+        return [c.name for c in self.current_source if c.value == AUTO]
 
     @property
     def elements(self) -> list[Frozen]:
@@ -196,6 +234,22 @@ class Netlist(Frozen):
             if element.name == name:
                 return element
         raise KeyError(name)
+
+
+class LoadSizing(Frozen):
+    """How a template's load current sources are sized, when a condition is prepared (never while loading).
+
+    Load ``name`` of `loads` gets `sign` times the current that voltage source ``loads[name]`` delivers out of its
+    plus terminal in `held`: the template's own netlist with every output held at its output_voltage, solved once
+    with no mismatch at the nominal corner and the config's temperature.
+    """
+
+    held: Netlist
+    loads: dict[Name, Name]
+    sign: Literal[1, -1] = 1
+
+
+Netlist.model_rebuild()  # its load_sizing refers to LoadSizing, defined after it
 
 
 def terminals(element: Frozen) -> list[str]:
