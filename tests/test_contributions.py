@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.model.circuit import evaluate_measures
 from mcmatch.model.devices import ekv, square_law
 from mcmatch.model.sensitivity import (

@@ -12,7 +12,7 @@ import pytest
 from scipy.stats import norm
 
 from mcmatch.cli import main
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.errors import ConfigError
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.run.engine import prepare

@@ -12,7 +12,8 @@ from typing import Any
 
 from mcmatch.cli import signals
 from mcmatch.cli.options import check_format, check_jobs, check_overrides
-from mcmatch.config.schema import Analysis, load_config
+from mcmatch.config.loading import load_config
+from mcmatch.config.schema import Analysis
 from mcmatch.results.folder import check_run_target
 from mcmatch.results.tables import write_json, write_run_folder, write_samples
 from mcmatch.run.cluster import cluster_session, parse_address, worker_threads

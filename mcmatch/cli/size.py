@@ -7,7 +7,7 @@ import json
 from pathlib import Path
 
 from mcmatch.cli import run
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.errors import ConfigError
 
 

@@ -35,6 +35,7 @@ from mcmatch.model.circuit import (
     voltage_mask,
 )
 from mcmatch.model.technology import device_parameters
+from mcmatch.run.loads import resolve_loads
 from mcmatch.run.workers import Watched
 from mcmatch.solve.newton import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
 
@@ -174,6 +175,7 @@ def prepare(
     guess: np.ndarray | None = None,
 ) -> Study:
     """Compile and solve the nominal point of one condition."""
+    config = resolve_loads(config)  # a template's load currents, sized once at the nominal condition
     circuit = build_circuit(config, corner, temperature, supply)
     kelvin = config.temperature if temperature is None else temperature
     where = f"corner {corner}, {kelvin - 273.15:.4g} degC" + (f", {supply[0]} = {supply[1]:.4g} V" if supply else "")

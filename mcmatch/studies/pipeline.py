@@ -26,6 +26,7 @@ from mcmatch.run.engine import (
     run_chunk,
     stream_chunks,
 )
+from mcmatch.run.loads import resolve_loads
 from mcmatch.stats.describe import describe
 from mcmatch.stats.streaming import (
     HISTOGRAM_BINS,
@@ -149,6 +150,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     """Nominal solve and Monte Carlo of the config's main condition, with summary statistics and yield."""
     options = options or RunOptions()
     started = time.perf_counter()
+    config = resolve_loads(config)  # the summary and every analysis see the sized load currents
     study = prepare(config)
     nominal = nominal_measures(study)
     samples = config.analysis.samples
