@@ -26,6 +26,7 @@ from mcmatch.draws.placement import (
     pick_best,
     shift_arrays,
 )
+from mcmatch.draws.process import with_process
 from mcmatch.errors import SolveError
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_sigmas
 from mcmatch.run.engine import Study, nominal_measures, nominal_point, solve_samples
@@ -71,6 +72,7 @@ def _placement_mc(
         stop = min(samples, start + BLOCK)
         z = standard_normals(study.seed, start, stop, 2 * params.count, study.stream, study.sampling)
         dvth, dbeta = mismatch_from_normals(params, z)
+        dvth, dbeta = with_process(study.variation, study.seed, start, dvth, dbeta, study.stream, study.sampling)
         g = standard_normals(study.seed, start, stop, 4, PLACEMENT_STREAM)
         extra_vth, extra_beta = distance_terms(centroids, placed, g, s_vt, s_beta)
         parts.append(solve_samples(study, dvth + extra_vth, dbeta + extra_beta))
