@@ -50,7 +50,7 @@ def vsource(name, plus, value):
     return {"name": name, "plus": plus, "minus": "gnd", "value": value}
 
 
-def config(circuit, measures, variation=None, tech=None, tmp=Path("t.toml"), **analysis):
+def config(circuit, measures, variation=None, tech=None, tmp=Path("t.toml"), specs=None, **analysis):
     raw_analysis = {"samples": 10000, "seed": 3, **analysis}
     if variation is not None:
         raw_analysis["variation"] = variation
@@ -59,6 +59,7 @@ def config(circuit, measures, variation=None, tech=None, tmp=Path("t.toml"), **a
         "technology": tech or TECH,
         "circuit": circuit,
         "measures": measures,
+        "specs": specs or {},
         "analysis": {**raw_analysis, "contributions": False},
     }
     return config_from_dict(raw, tmp)
@@ -249,6 +250,37 @@ def test_polarity_correlation_shows_in_a_circuit_with_both_polarities():
     assert monte_carlo(study0, n, jobs=1)["v_p"].std(ddof=1) == pytest.approx(without, rel=4 * rel_se(n))
 
 
+@pytest.mark.slow
+def test_high_sigma_samples_the_global_draws():
+    # with "global" alone and kprime_sigma = 0 the diode node of the pmos mirror is exactly linear in the two
+    # correlated threshold draws (see above), so a limit 4.5 sigma above nominal fails with probability
+    # norm.sf(4.5) = 3.4e-6 (scipy.stats.norm); the importance-sampling estimate must hold it within 4 of its
+    # standard errors, with samples that plain Monte Carlo would never see fail
+    from scipy import stats
+
+    from mcmatch.run.engine import nominal_measures
+    from mcmatch.studies.extra import run_high_sigma
+
+    rho, sn, sp = 0.5, 0.015, 0.018
+    sigma = math.sqrt(sp**2 + sn**2 - 2 * rho * sn * sp)
+    circuit, measures, tech = pmos_mirror(rho)
+    probe = prepare(config(circuit, measures, variation="global", tech=tech))
+    limit = nominal_measures(probe)["v_p"] + 4.5 * sigma
+    cfg = config(
+        circuit,
+        measures,
+        variation="global",
+        tech=tech,
+        specs={"v_p": {"max": f"{limit!r} V"}},
+        high_sigma={"samples": 4000},
+    )
+    out = run_high_sigma(cfg, prepare(cfg))["v_p"]
+    exact = float(stats.norm.sf(4.5))
+    assert abs(out["fail_probability"] - exact) < 4 * out["std_error"]
+    assert out["std_error"] < 0.2 * exact  # the shift found the failure region
+    assert out["sigma_level"] == pytest.approx(4.5, abs=0.1)
+
+
 # ---------------------------------------------------------------------------------------------- local unchanged
 def test_local_summary_equals_the_default():
     circuit, measures, tech = mirror()
@@ -313,14 +345,11 @@ def test_bad_statistics_exit_2_naming_file_and_key(tmp_path, capsys, statistics,
     assert not (tmp_path / "out").exists()
 
 
-def test_global_without_statistics_or_with_high_sigma_is_refused(tmp_path):
+def test_global_without_statistics_is_refused():
     bare = {k: v for k, v in TECH.items() if k != "statistics"}
     with pytest.raises(ConfigError) as info:
         config(SINGLE, {"i": {"current": "M1"}}, variation="both", tech=bare)
-    assert info.value.key == "analysis.variation"
-    with pytest.raises(ConfigError) as info:
-        config(SINGLE, {"i": {"current": "M1"}}, variation="global", high_sigma={"samples": 1000})
-    assert info.value.key == "analysis.high_sigma"
+    assert info.value.key == "analysis.variation" and "[statistics]" in info.value.message
     with pytest.raises(ConfigError) as info:
         config(SINGLE, {"i": {"current": "M1"}}, variation="sometimes")
     assert info.value.key == "analysis.variation"

@@ -19,10 +19,3 @@ def check_variation(analysis: Analysis, technology: Technology, file: str) -> No
             file=file,
             key="analysis.variation",
         )
-    if analysis.high_sigma is not None:
-        raise ConfigError(
-            f"[analysis.high_sigma] samples the per-device mismatch only and cannot take variation = '{mode}' yet; "
-            "set variation = 'local' for the high-sigma estimate, or drop [analysis.high_sigma]",
-            file=file,
-            key="analysis.high_sigma",
-        )

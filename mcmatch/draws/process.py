@@ -19,8 +19,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from mcmatch.config.schema import Statistics
-from mcmatch.draws.mismatch import Sampling, normal_source
+from mcmatch.draws.mismatch import Sampling, mismatch_from_normals, normal_source
 from mcmatch.errors import ConfigError
+from mcmatch.model.technology import DeviceParameters
 
 #: Random stream of the global draws of a study on mismatch stream s: PROCESS_STREAM + s (the mismatch draws keep
 #: stream s, so "both" has exactly the local draws of "local"; a study on a fresh mismatch stream, such as the area
@@ -122,3 +123,35 @@ def with_process(
     vt, bt = np.array(dvth, dtype=float).T.copy(), np.array(dbeta, dtype=float).T.copy()
     ProcessDraws(spread, seed, start, stream, sampling).apply_t(vt, bt)
     return vt.T, bt.T
+
+
+# ------------------------------------------------------------------------------------- standard-normal space
+def normal_dims(n_devices: int, spread: ProcessSpread | None) -> int:
+    """Dimensions of a sample's standard-normal vector: 2 n_devices mismatch normals, then the PROCESS_DIMS global
+    ones when there is a global spread (the layout of :func:`deviations_from_normals`)."""
+    return 2 * n_devices + (0 if spread is None else PROCESS_DIMS)
+
+
+def deviations_from_normals(
+    params: DeviceParameters, spread: ProcessSpread | None, z: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """dvth [V], dbeta [1], each (S, n_devices), from standard normals z (S, :func:`normal_dims`): the Pelgrom
+    deviations of the first 2 n_devices columns (zero for "global" alone) plus the global shifts A z of the rest."""
+    nd = params.count
+    dvth, dbeta = mismatch_from_normals(params, z[:, : 2 * nd])
+    if spread is None:
+        return dvth, dbeta
+    if not spread.local:
+        dvth, dbeta = np.zeros_like(dvth), np.zeros_like(dbeta)
+    shifts = z[:, 2 * nd :] @ spread.loading.T
+    return dvth + shifts[:, :nd], dbeta + shifts[:, nd:]
+
+
+def normal_gradient(gradient: np.ndarray, sigmas: np.ndarray, spread: ProcessSpread | None) -> np.ndarray:
+    """d(measure)/dz along the layout of :func:`deviations_from_normals` from d(measure)/d(parameter) `gradient`
+    (2 n_devices,) and the local sigmas (2 n_devices,) [unit per standard normal]."""
+    g = np.asarray(gradient, dtype=float)
+    local = g * sigmas
+    if spread is None:
+        return local
+    return np.concatenate([local if spread.local else np.zeros_like(local), g @ spread.loading])
