@@ -353,8 +353,12 @@ def test_global_without_statistics_is_refused():
     with pytest.raises(ConfigError) as info:
         config(SINGLE, {"i": {"current": "M1"}}, variation="sometimes")
     assert info.value.key == "analysis.variation"
-    # local needs no statistics
-    assert config(SINGLE, {"i": {"current": "M1"}}, tech=bare).analysis.variation == "local"
+    # local needs no statistics; an override through the public API is checked the same way
+    local = config(SINGLE, {"i": {"current": "M1"}}, tech=bare)
+    assert local.analysis.variation == "local"
+    with pytest.raises(ConfigError) as info:
+        local.with_analysis(variation="global")
+    assert info.value.key == "analysis.variation"
 
 
 def test_bundled_technologies_carry_statistics():

@@ -442,6 +442,9 @@ class Config(Frozen):
         except ValidationError as exc:  # the overrides come from the command line (or an API caller)
             raise validation_to_config_error(exc, "command line", Analysis, prefix="analysis") from None
         check_spec_references(analysis, self.specs, self.path)
+        from mcmatch.config.variation import check_variation  # its own module: [statistics] against the studies
+
+        check_variation(analysis, self.technology, self.path)
         return self.model_copy(update={"analysis": analysis})
 
     def with_circuit(self, circuit: Netlist) -> Config:
