@@ -202,6 +202,9 @@ def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
     check_measures(measures, netlist, file)
     specs = parse_specs(parsed.specs, measures, file)
     check_analysis(parsed.analysis, netlist, technology, file)
+    from mcmatch.config.variation import check_variation  # its own module: [statistics] against the studies
+
+    check_variation(parsed.analysis, technology, file)
     check_spec_references(parsed.analysis, specs, file)
     check_placement(parsed.placement, netlist, file)
     temperature = parsed.temperature if parsed.temperature is not None else technology.nominal_temperature

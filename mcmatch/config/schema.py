@@ -104,6 +104,21 @@ class Corner(Frozen):
     pmos: CornerShift = CornerShift()
 
 
+class PolarityStatistics(Frozen):
+    """Die-to-die (global) spread of one polarity: threshold sigma [V], relative k' sigma [1]."""
+
+    vth_sigma: Q("V") = Field(default=0.0, ge=0, le=1)
+    kprime_sigma: Q("1") = Field(default=0.0, ge=0, le=1)
+
+
+class Statistics(Frozen):
+    """Global process statistics: one draw per die (sample); nmos and pmos draws of one quantity correlated."""
+
+    nmos: PolarityStatistics = PolarityStatistics()
+    pmos: PolarityStatistics = PolarityStatistics()
+    polarity_correlation: Number = Field(default=0.0, ge=-1, le=1)
+
+
 class Technology(Frozen):
     name: Name
     description: str = ""
@@ -111,6 +126,7 @@ class Technology(Frozen):
     nmos: PolarityParameters | None = None
     pmos: PolarityParameters | None = None
     corners: dict[Name, Corner] = Field(default_factory=dict)
+    statistics: Statistics | None = None
 
     @field_validator("corners")
     @classmethod
@@ -390,6 +406,7 @@ class Analysis(Frozen):
     samples: int = Field(default=10000, ge=1, le=10_000_000_000)
     seed: int = Field(default=1, ge=0, le=2**63 - 1)
     sampling: Literal["random", "sobol"] = "random"
+    variation: Literal["local", "global", "both"] = "local"  # mismatch, global process spread, or both
     keep_samples: int = Field(default=100_000, ge=0)
     target: Target = Target()
     corners: CornerStudy | None = None
@@ -503,6 +520,9 @@ class Config(Frozen):
         except ValidationError as exc:  # the overrides come from the command line (or an API caller)
             raise validation_to_config_error(exc, "command line", Analysis, prefix="analysis") from None
         check_spec_references(analysis, self.specs, self.path)
+        from mcmatch.config.variation import check_variation  # its own module: [statistics] against the studies
+
+        check_variation(analysis, self.technology, self.path)
         return self.model_copy(update={"analysis": analysis})
 
     def with_circuit(self, circuit: Netlist) -> Config:

@@ -202,6 +202,9 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     from mcmatch.studies.extra import run_extra_analyses  # placements, high-sigma yield, bank yield
 
     summary.update(run_extra_analyses(config, study, summary, options))
+    from mcmatch.studies.variation import run_variation  # local and global parts of the spread (variation mode)
+
+    summary.update(run_variation(config, study, summary))
     table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
     return RunResult(summary=summary, table=table, study=study)
