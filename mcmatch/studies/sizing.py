@@ -25,6 +25,7 @@ import numpy as np
 
 from mcmatch.config.schema import Config, Netlist, SizingStudy
 from mcmatch.draws.mismatch import normal_source
+from mcmatch.draws.process import PROCESS_DIMS
 from mcmatch.errors import SolveError
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
@@ -34,9 +35,11 @@ from mcmatch.stats.corners import GridPoint, corner_grid
 from mcmatch.stats.yields import passes, yield_block
 from mcmatch.studies.analyses import _mc
 
-#: Random streams of the linear-model draws and of the confirming Monte Carlo (apart from every other study's).
-LINEAR_STREAM = 7
-CONFIRM_STREAM = 8
+#: Random streams of the linear-model draws (mismatch; LINEAR_STREAM + 1 the global draws) and of the confirming
+#: Monte Carlo, apart from every other study's (main 0, area confirmation 2, high-sigma 7, placement 8; below the
+#: global process stream's offset, 16).
+LINEAR_STREAM = 9
+CONFIRM_STREAM = 11
 #: Draws of the linear model (scrambled Sobol' points): the area for a 0.9973 target to about 1 %.
 LINEAR_DRAWS = 2**16
 #: A design meets the linear target when at most this many draws' worth below it (rounding at the boundary).
@@ -91,6 +94,9 @@ class Evaluator:
         self.mask = np.array([device in grouped for device in labels])
         self.z_scaled = np.ascontiguousarray(self.z[:, self.mask])
         self.z_fixed = np.ascontiguousarray(self.z[:, ~self.mask])
+        # the global (die-to-die) draws of variation "global" / "both": they do not scale with area
+        self.z_global = normal_source(config.analysis.seed, 0, PROCESS_DIMS, LINEAR_STREAM + 1, "sobol")
+        self.z_global = self.z_global.take(LINEAR_DRAWS).T
         self.guesses: dict[str, np.ndarray] = {}
         self.solves = 0
 
@@ -122,11 +128,21 @@ class Evaluator:
         missing = [n for n in self.specs if grads[n] is None]
         if missing:
             raise SolveError(f"measure '{missing[0]}' has no sensitivity at the operating point (zero denominator)")
-        gain = np.array([grads[n] for n in self.specs]) * parameter_sigmas(circuit)[None, :]  # (specs, params)
+        raw = np.array([grads[n] for n in self.specs])  # d(measure)/d(parameter) (specs, params)
+        gain = raw * parameter_sigmas(circuit)[None, :]  # per unit local normal [SI]
+        spread = study.variation  # None for variation "local"
+        if spread is not None and not spread.local:
+            gain = np.zeros_like(gain)  # "global" alone: no per-device mismatch
         if [d for d, _ in parameter_labels(circuit)] != [m.name for m in self.config.circuit.mosfet] * 2:
             raise AssertionError("parameter axis order differs from the netlist's")  # the masks above rely on it
         scaled = self.z_scaled @ gain[:, self.mask].T
         fixed = self.z_fixed @ gain[:, ~self.mask].T if (~self.mask).any() else None
+        variance = (gain**2).sum(axis=1)
+        if spread is not None:
+            shared = raw @ spread.loading  # (specs, 4): every device of a polarity moves alike
+            moved = self.z_global @ shared.T
+            fixed = moved if fixed is None else fixed + moved
+            variance = variance + (shared**2).sum(axis=1)
         m0 = np.array([nominal[n] for n in self.specs])
         ops = device_operating_points(circuit, study.x_nominal)
         headroom = {op["name"]: op["headroom"] for op in ops if op.get("headroom") is not None}
@@ -136,7 +152,7 @@ class Evaluator:
         return Point(
             t_max=arith.largest_passing_scale(m0, scaled, fixed, self.low, self.high),
             nominal=m0,
-            std=np.sqrt((gain**2).sum(axis=1)),
+            std=np.sqrt(variance),
             min_headroom=float(headroom[limiting]) if limiting else math.inf,
             limiting_device=limiting,
             out_of_saturation=[n for n, h in headroom.items() if h < 0],
