@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.model.circuit import evaluate_measures
 from mcmatch.model.devices import ekv, ekv_hessian, square_law, square_law_hessian
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
