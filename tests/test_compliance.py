@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.model.circuit import extend
 from mcmatch.model.headroom import HEADROOM_COLUMN, device_headroom
 from mcmatch.model.operating_point import device_operating_points

@@ -9,16 +9,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.model.circuit import evaluate_measures
-from mcmatch.model.devices import ekv, square_law
-from mcmatch.model.sensitivity import (
-    ekv_hessian,
-    measure_sensitivities,
-    parameter_labels,
-    parameter_sigmas,
-    square_law_hessian,
-)
+from mcmatch.model.devices import ekv, ekv_hessian, square_law, square_law_hessian
+from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
 from mcmatch.run.engine import monte_carlo, nominal_point, prepare
 from mcmatch.stats.contributions import contribution_table, std_interval
 from mcmatch.studies.analyses import run_contributions

@@ -10,7 +10,8 @@ import pytest
 
 import mcmatch.studies.analyses
 from mcmatch.cli import main
-from mcmatch.config.schema import Limits, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Limits
 from mcmatch.errors import SolveError
 from mcmatch.model.devices import thermal_voltage
 from mcmatch.model.technology import device_parameters

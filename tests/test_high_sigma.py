@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.config.schema import Limits, config_from_dict, load_config
+from mcmatch.config.loading import config_from_dict, load_config
+from mcmatch.config.schema import Limits
 from mcmatch.run.engine import monte_carlo, prepare
 from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.yields import passes

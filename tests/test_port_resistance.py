@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import Measure, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Measure
 from mcmatch.errors import ConfigError
 from mcmatch.model.circuit import GMIN
 from mcmatch.model.operating_point import device_operating_points

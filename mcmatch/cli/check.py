@@ -8,14 +8,15 @@ import json
 import numpy as np
 
 from mcmatch.cli.corner_table import compliance_table
-from mcmatch.config.schema import load_config
-from mcmatch.config.templates import format_quantity, netlist_toml
+from mcmatch.config.loading import load_config
+from mcmatch.config.templates import netlist_toml
 from mcmatch.errors import ConfigError, SolveError
 from mcmatch.model.operating_point import LOW_HEADROOM, device_operating_points, warnings_for
 from mcmatch.run.engine import nominal_measures, prepare
+from mcmatch.run.loads import resolve_loads
 from mcmatch.run.multistart import other_operating_points, several_points_warning
 from mcmatch.studies.compliance import corner_compliance
-from mcmatch.units import UnitError, parse_quantity
+from mcmatch.units import UnitError, format_quantity, parse_quantity
 
 COLUMNS = (
     ("device", "name"),
@@ -124,7 +125,7 @@ def _runaway(config, partial: object) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
-    config = load_config(args.config)
+    config = resolve_loads(load_config(args.config))  # sized before anything is shown: --netlist prints them
     corner, temperature, supply = _conditions(args, config)
     try:
         study = prepare(config, corner=corner, temperature=temperature, supply=supply)

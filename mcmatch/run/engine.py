@@ -17,6 +17,7 @@ import numpy as np
 
 from mcmatch.config.schema import Config, Measure
 from mcmatch.draws.mismatch import BLOCK, Sampling, normal_source, perturbed
+from mcmatch.draws.process import ProcessSpread, process_draws, process_spread
 from mcmatch.errors import SolveError
 from mcmatch.model.circuit import (
     DERIVATIVES,
@@ -37,6 +38,7 @@ from mcmatch.model.circuit import (
 )
 from mcmatch.model.headroom import HEADROOM_COLUMN, min_headroom, mna_terminal, reduced_terminal
 from mcmatch.model.technology import device_parameters
+from mcmatch.run.loads import resolve_loads
 from mcmatch.run.workers import Watched
 from mcmatch.solve.newton import ColumnSystem, SparseElimination, newton_columns, solve_batch, solve_operating_point
 from mcmatch.solve.ports import reduced_port_resistances
@@ -96,6 +98,7 @@ class Study:
     corner: str = "tt"
     temperature: float = 300.15
     sampling: Sampling = "random"  # how run_chunk draws the mismatch normals (mismatch.normal_source)
+    variation: ProcessSpread | None = None  # global process spread added per sample (draws.process); None: local
 
     @property
     def device_names(self) -> tuple[str, ...]:
@@ -177,6 +180,7 @@ def prepare(
     guess: np.ndarray | None = None,
 ) -> Study:
     """Compile and solve the nominal point of one condition."""
+    config = resolve_loads(config)  # a template's load currents, sized once at the nominal condition
     circuit = build_circuit(config, corner, temperature, supply)
     kelvin = config.temperature if temperature is None else temperature
     where = f"corner {corner}, {kelvin - 273.15:.4g} degC" + (f", {supply[0]} = {supply[1]:.4g} V" if supply else "")
@@ -203,6 +207,7 @@ def prepare(
         corner=corner,
         temperature=config.temperature if temperature is None else temperature,
         sampling=config.analysis.sampling,
+        variation=process_spread(config.analysis.variation, config.technology.statistics, circuit.params.polarity),
     )
     bad = [name for name, value in nominal_measures(study).items() if not np.isfinite(value)]
     if bad or not np.isfinite(x0).all():
@@ -797,6 +802,7 @@ def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
     nd = params.count
     n = max(0, stop - start)
     draws = normal_source(study.seed, start, 2 * nd, study.stream, study.sampling)
+    spread = process_draws(study.variation, study.seed, start, study.stream, study.sampling)
     dvth, dbeta = np.empty((nd, n)), np.empty((nd, n))
     out: dict[str, np.ndarray] = {"sample": np.arange(start, stop, dtype=np.int64)}
     for lo in range(0, n, FAST_BATCH) if n else [0]:
@@ -805,6 +811,8 @@ def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
         # mismatch_from_normals_t, written in place
         np.multiply(z[:nd], params.sigma_vth[:, None], out=dvth[:, lo:hi])
         np.multiply(z[nd:], params.sigma_beta[:, None], out=dbeta[:, lo:hi])
+        if spread is not None:  # global process spread, variation "global" or "both"
+            spread.apply_t(dvth[:, lo:hi], dbeta[:, lo:hi])
         part = solve_samples_t(study, dvth[:, lo:hi], dbeta[:, lo:hi])
         if lo == 0 and hi == n:
             out.update(part)

@@ -237,4 +237,8 @@ def run_analyses(config: Config, study: Study, summary: dict, options: Any = Non
         out["area"] = run_area(config, options)
     if config.analysis.contributions:
         out["contributions"] = run_contributions(study, summary)
+    if config.analysis.sizing is not None:
+        from mcmatch.studies.sizing import run_sizing  # it builds on this module's Monte Carlo helper
+
+        out["sizing"] = run_sizing(config, options)
     return out

@@ -26,6 +26,7 @@ from mcmatch.run.engine import (
     run_chunk,
     stream_chunks,
 )
+from mcmatch.run.loads import resolve_loads
 from mcmatch.stats.compliance import compliance_block
 from mcmatch.stats.describe import describe
 from mcmatch.stats.streaming import (
@@ -150,6 +151,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     """Nominal solve and Monte Carlo of the config's main condition, with summary statistics and yield."""
     options = options or RunOptions()
     started = time.perf_counter()
+    config = resolve_loads(config)  # the summary and every analysis see the sized load currents
     study = prepare(config)
     nominal = nominal_measures(study)
     samples = config.analysis.samples
@@ -202,6 +204,9 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     from mcmatch.studies.extra import run_extra_analyses  # placements, high-sigma yield, bank yield
 
     summary.update(run_extra_analyses(config, study, summary, options))
+    from mcmatch.studies.variation import run_variation  # local and global parts of the spread (variation mode)
+
+    summary.update(run_variation(config, study, summary))
     table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
     return RunResult(summary=summary, table=table, study=study)
