@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.config.schema import config_from_dict, load_config
+from mcmatch.config.loading import config_from_dict, load_config
 from mcmatch.errors import ConfigError
 from mcmatch.run.study import prepare
 from mcmatch.stats.bank import bank_yield

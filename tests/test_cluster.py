@@ -22,7 +22,7 @@ import pandas as pd
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.draws.mismatch import BLOCK
 from mcmatch.errors import ConfigError
 from mcmatch.results.tables import read_samples

@@ -9,15 +9,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.config.schema import config_from_dict
-from mcmatch.model.devices import ekv, square_law
-from mcmatch.model.sensitivity import (
-    ekv_hessian,
-    measure_sensitivities,
-    parameter_labels,
-    parameter_sigmas,
-    square_law_hessian,
-)
+from mcmatch.config.loading import config_from_dict
+from mcmatch.model.devices import ekv, ekv_hessian, square_law, square_law_hessian
+from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
 from mcmatch.run.chunks import monte_carlo
 from mcmatch.run.study import nominal_point, prepare
 from mcmatch.solve.measures import mna_measures

@@ -10,7 +10,7 @@ import pytest
 from scipy import optimize
 
 from mcmatch.cli import main
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.draws.mismatch import BLOCK, standard_normals
 from mcmatch.model.circuit import GMIN, residual_jacobian
 from mcmatch.model.technology import pair_sigma, pelgrom_sigma

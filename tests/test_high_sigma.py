@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.config.schema import Limits, config_from_dict, load_config
+from mcmatch.config.loading import config_from_dict, load_config
+from mcmatch.config.schema import Limits
 from mcmatch.run.chunks import monte_carlo
 from mcmatch.run.study import prepare
 from mcmatch.stats import high_sigma as hs

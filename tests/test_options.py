@@ -14,7 +14,7 @@ import pytest
 from conftest import ROOT, snapshot
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.errors import ConfigError
 from mcmatch.run.chunks import usable_cores
 

@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import Placement, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Placement
 from mcmatch.draws.placement import (
     cell_layout,
     count_warnings,

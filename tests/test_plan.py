@@ -77,7 +77,8 @@ def test_both_solved_points_give_the_same_measures():
     # diagonal block of the Jacobian for a node's resistance) and the full MNA point (branch-current unknowns, the
     # dense Jacobian) are two views of one solution, so the one evaluator must give the same numbers from both.
     # Circuit invented for the test: a diode, a degenerated output into a resistor, a floating voltage source.
-    from mcmatch.config.schema import Measure, config_from_dict
+    from mcmatch.config.loading import config_from_dict
+    from mcmatch.config.schema import Measure
     from mcmatch.run.study import fast_plan, prepare
     from mcmatch.solve.fast import expand_unknowns, fast_newton
     from mcmatch.solve.measures import ReducedPoint, evaluate_measures

@@ -12,7 +12,7 @@ import pytest
 from scipy import stats
 from scipy.special import ndtr
 
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.draws.mismatch import (
     BLOCK,
     SOBOL_SCRAMBLINGS,

@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import Limits, load_config
+from mcmatch.config.loading import load_config
+from mcmatch.config.schema import Limits
 from mcmatch.draws.mismatch import BLOCK
 from mcmatch.results.tables import read_samples
 from mcmatch.run import chunks

@@ -7,7 +7,8 @@ import json
 import sys
 
 from mcmatch.cli.options import check_jobs, check_overrides
-from mcmatch.config.schema import Analysis, Placement, load_config
+from mcmatch.config.loading import load_config
+from mcmatch.config.schema import Analysis, Placement
 from mcmatch.errors import ConfigError
 from mcmatch.results.folder import check_output_file
 

@@ -1202,8 +1202,8 @@ def placement_drawing(summary: dict) -> dict | None:
     placements = summary.get("placements")
     if not isinstance(placements, list) or not placements:
         return None
-    from mcmatch.report.figure_placement import placement_figure
     from mcmatch.report import figures as plots
+    from mcmatch.report.figure_placement import placement_figure
 
     try:
         figure = placement_figure(placements)

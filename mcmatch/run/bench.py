@@ -17,7 +17,8 @@ from pathlib import Path
 import numpy as np
 from scipy import optimize
 
-from mcmatch.config.schema import Config, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Config
 from mcmatch.draws.mismatch import mismatch_from_normals, perturbed, standard_normals
 from mcmatch.model.circuit import residual_jacobian
 from mcmatch.run.chunks import chunk_ranges, run_chunk

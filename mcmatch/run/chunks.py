@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from mcmatch.draws.mismatch import BLOCK, normal_source
+from mcmatch.draws.process import process_draws
 from mcmatch.run.allocator import tune_allocator
 from mcmatch.run.study import Study, solve_samples_t
 from mcmatch.run.workers import Watched
@@ -39,6 +40,7 @@ def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
     nd = params.count
     n = max(0, stop - start)
     draws = normal_source(study.seed, start, 2 * nd, study.stream, study.sampling)
+    spread = process_draws(study.variation, study.seed, start, study.stream, study.sampling)
     dvth, dbeta = np.empty((nd, n)), np.empty((nd, n))
     out: dict[str, np.ndarray] = {"sample": np.arange(start, stop, dtype=np.int64)}
     for lo in range(0, n, FAST_BATCH) if n else [0]:
@@ -47,6 +49,8 @@ def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
         # mismatch_from_normals_t, written in place
         np.multiply(z[:nd], params.sigma_vth[:, None], out=dvth[:, lo:hi])
         np.multiply(z[nd:], params.sigma_beta[:, None], out=dbeta[:, lo:hi])
+        if spread is not None:  # global process spread, variation "global" or "both"
+            spread.apply_t(dvth[:, lo:hi], dbeta[:, lo:hi])
         part = solve_samples_t(study, dvth[:, lo:hi], dbeta[:, lo:hi])
         if lo == 0 and hi == n:
             out.update(part)

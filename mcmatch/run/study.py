@@ -13,9 +13,11 @@ import numpy as np
 
 from mcmatch.config.schema import Config, Measure
 from mcmatch.draws.mismatch import Sampling
+from mcmatch.draws.process import ProcessSpread, process_spread
 from mcmatch.errors import SolveError
 from mcmatch.model.circuit import GMIN, Circuit, compile_circuit, voltage_mask
 from mcmatch.model.technology import device_parameters
+from mcmatch.run.loads import resolve_loads
 from mcmatch.solve.fast import deviation_unknowns, solve_deviations
 from mcmatch.solve.measures import mna_measures
 from mcmatch.solve.newton import solve_operating_point
@@ -35,6 +37,7 @@ class Study:
     corner: str = "tt"
     temperature: float = 300.15
     sampling: Sampling = "random"  # how run_chunk draws the mismatch normals (mismatch.normal_source)
+    variation: ProcessSpread | None = None  # global process spread added per sample (draws.process); None: local
 
     @property
     def device_names(self) -> tuple[str, ...]:
@@ -83,6 +86,7 @@ def prepare(
     guess: np.ndarray | None = None,
 ) -> Study:
     """Compile and solve the nominal point of one condition."""
+    config = resolve_loads(config)  # a template's load currents, sized once at the nominal condition
     circuit = build_circuit(config, corner, temperature, supply)
     kelvin = config.temperature if temperature is None else temperature
     where = f"corner {corner}, {kelvin - 273.15:.4g} degC" + (f", {supply[0]} = {supply[1]:.4g} V" if supply else "")
@@ -109,6 +113,7 @@ def prepare(
         corner=corner,
         temperature=config.temperature if temperature is None else temperature,
         sampling=config.analysis.sampling,
+        variation=process_spread(config.analysis.variation, config.technology.statistics, circuit.params.polarity),
     )
     bad = [name for name, value in nominal_measures(study).items() if not np.isfinite(value)]
     if bad or not np.isfinite(x0).all():

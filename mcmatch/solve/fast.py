@@ -14,6 +14,7 @@ import numpy as np
 
 from mcmatch.config.schema import Measure
 from mcmatch.model.circuit import DERIVATIVES, Circuit, DeviceState, device_state, reduced_residual_jacobian
+from mcmatch.model.headroom import HEADROOM_COLUMN, min_headroom, reduced_terminal
 from mcmatch.solve.measures import ReducedPoint, evaluate_measures, grounded_source_currents
 from mcmatch.solve.newton import ColumnSystem, newton_columns
 from mcmatch.solve.plan import Block, FastPlan
@@ -143,6 +144,8 @@ def solve_fast(
     n_samples = dvth.shape[1]
     sol = fast_newton(plan, dvth, dbeta)
     out = evaluate_measures(circuit, measures, ReducedPoint(plan, sol.u, sol.vth, sol.beta, sol.currents))
+    terminal = reduced_terminal(plan.reduced, sol.u)  # model/headroom.py: the smallest Vds - Vdsat per sample
+    out[HEADROOM_COLUMN] = min_headroom(circuit, terminal, sol.vth, sol.beta, n_samples)
     free = [r for r in (plan.reduced.position[node] for node in range(circuit.n_nodes)) if r >= 0]
     ok = sol.converged & within_band(supply_band(circuit, plan.x_nominal), sol.u[free].T)
     for key in measures:
@@ -159,13 +162,13 @@ def solve_fast(
             np.ascontiguousarray(dvth[:, retry].T),
             np.ascontiguousarray(dbeta[:, retry].T),
         )
-        for key in measures:
+        for key in (*measures, HEADROOM_COLUMN):
             out[key][retry] = again[key]
         out["converged"][retry] = again["converged"]
         out["iterations"][retry] += again["iterations"]
         out["retried"][retry] = True
     if not out["converged"].all():
-        for key in measures:
+        for key in (*measures, HEADROOM_COLUMN):
             out[key] = np.where(out["converged"], out[key], np.nan)
     return out
 

@@ -1,5 +1,5 @@
-"""The one measure evaluator: currents [A], node voltages [V], ratio errors [1] and node resistances [ohm] of solved
-samples, for both solve paths.
+"""The one measure evaluator: currents [A], node voltages [V], ratio errors [1], node and port resistances [ohm] of
+solved samples, for both solve paths.
 
 Each measure kind is defined once, in :func:`evaluate_measures`, on four primitives of a solved point (a node's
 voltage, a MOSFET's channel current, a voltage source's current, a node's small-signal resistance). Two points
@@ -26,7 +26,9 @@ from mcmatch.model.circuit import (
     reduced_residual_jacobian,
     residual_jacobian,
 )
+from mcmatch.model.small_signal import port_resistance
 from mcmatch.solve.plan import FastPlan
+from mcmatch.solve.ports import reduced_port_resistances
 
 
 class SolvedPoint(Protocol):
@@ -46,6 +48,10 @@ class SolvedPoint(Protocol):
     def resistance(self, node: int) -> np.ndarray:
         """Small-signal resistance [ohm] from node `node` to gnd; voltage sources shorted, current sources open."""
 
+    def port_resistances(self, sources: list[str]) -> dict[str, np.ndarray]:
+        """Small-signal resistance [ohm] seen by each named voltage source looking into the circuit (dV/dI, the
+        other voltage sources shorted, current sources open)."""
+
 
 def element_current(circuit: Circuit, point: SolvedPoint, name: str) -> np.ndarray:
     """Current of the element `name` [A], signed as DESIGN.md section 3 states."""
@@ -63,8 +69,12 @@ def element_current(circuit: Circuit, point: SolvedPoint, name: str) -> np.ndarr
 def evaluate_measures(circuit: Circuit, measures: Mapping[str, Measure], point: SolvedPoint) -> dict[str, np.ndarray]:
     """Every measure at `point`: currents [A], voltages [V], ratio errors ratio/ideal - 1 [1], resistances [ohm]."""
     out: dict[str, np.ndarray] = {}
+    ports = list(dict.fromkeys(m.port_resistance for m in measures.values() if m.port_resistance is not None))
+    port_values = point.port_resistances(ports) if ports else {}  # every port at once: they share a factorisation
     for key, measure in measures.items():
-        if measure.current is not None:
+        if measure.port_resistance is not None:
+            out[key] = np.array(port_values[measure.port_resistance], dtype=float, copy=True)
+        elif measure.current is not None:
             out[key] = np.array(element_current(circuit, point, measure.current), dtype=float, copy=True)
         elif measure.voltage is not None:
             out[key] = np.array(point.node_voltage(circuit.node_index(measure.voltage)), dtype=float, copy=True)
@@ -106,6 +116,11 @@ class MnaPoint:
         rhs = np.zeros((self.n_samples, self.jac.shape[1], 1))
         rhs[:, node, 0] = 1.0
         return np.linalg.solve(self.jac, rhs)[:, node, 0]
+
+    def port_resistances(self, sources: list[str]) -> dict[str, np.ndarray]:
+        if self.jac is None:
+            _, self.jac = residual_jacobian(self.circuit, self.x, self.vth, self.beta)
+        return {name: port_resistance(self.circuit, self.jac, name) for name in sources}
 
 
 def mna_measures(
@@ -173,6 +188,9 @@ class ReducedPoint:
         rhs[local] = 1.0
         y, ok = block.linear.solve(self._jacobians[b], rhs)
         return np.where(ok, y[local], np.nan)
+
+    def port_resistances(self, sources: list[str]) -> dict[str, np.ndarray]:
+        return reduced_port_resistances(self.reduced, self.u, self.vth, self.beta, sources, self.plan.u_nominal)
 
 
 def grounded_source_currents(

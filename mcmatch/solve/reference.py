@@ -13,7 +13,8 @@ import numpy as np
 
 from mcmatch.config.schema import Measure
 from mcmatch.draws.mismatch import perturbed
-from mcmatch.model.circuit import GMIN, Circuit, residual_jacobian, voltage_mask
+from mcmatch.model.circuit import GMIN, Circuit, extend, residual_jacobian, voltage_mask
+from mcmatch.model.headroom import HEADROOM_COLUMN, min_headroom, mna_terminal
 from mcmatch.solve.measures import mna_measures
 from mcmatch.solve.newton import solve_batch
 
@@ -79,6 +80,7 @@ def solve_reference(
     out: dict[str, np.ndarray] = {}
     for v in values.values():
         ok &= np.isfinite(v)
+    values[HEADROOM_COLUMN] = min_headroom(circuit, mna_terminal(extend(result.x)), vth.T, beta.T, len(ok))
     for key, v in values.items():
         out[key] = np.where(ok, v, np.nan)
     out["converged"] = ok

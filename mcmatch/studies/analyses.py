@@ -13,6 +13,7 @@ import numpy as np
 
 from mcmatch.config.schema import Config
 from mcmatch.errors import SolveError
+from mcmatch.model.operating_point import device_operating_points
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
 from mcmatch.run.chunks import POOL_THRESHOLD, monte_carlo
 from mcmatch.run.study import Study, nominal_measures, prepare
@@ -25,6 +26,7 @@ from mcmatch.stats.area import (
     minimum_area,
     scaled_netlist,
 )
+from mcmatch.stats.compliance import compliance_of_columns
 from mcmatch.stats.contributions import contribution_table
 from mcmatch.stats.corners import corner_entry, corner_grid, error_entry, worst_corners
 from mcmatch.stats.describe import describe
@@ -74,6 +76,7 @@ def run_corners(config: Config, summary: dict, options: Options | None = None) -
         guess = study.x_nominal
         columns = _mc(study, samples, options)
         entries.append(corner_entry(point, nominal_measures(study), columns, config.specs))
+        entries[-1]["compliance"] = compliance_of_columns(device_operating_points(study.circuit, guess), columns)
     return entries, worst_corners(entries, summary["measures"], config.specs)
 
 
@@ -235,4 +238,8 @@ def run_analyses(config: Config, study: Study, summary: dict, options: Any = Non
         out["area"] = run_area(config, options)
     if config.analysis.contributions:
         out["contributions"] = run_contributions(study, summary)
+    if config.analysis.sizing is not None:
+        from mcmatch.studies.sizing import run_sizing  # it builds on this module's Monte Carlo helper
+
+        out["sizing"] = run_sizing(config, options)
     return out

@@ -17,7 +17,9 @@ from mcmatch.draws.mismatch import BLOCK, SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.results.tables import to_frame
 from mcmatch.run.chunks import CHUNK_QUANTUM, resolve_jobs, run_chunk, stream_chunks
+from mcmatch.run.loads import resolve_loads
 from mcmatch.run.study import Study, nominal_measures, prepare
+from mcmatch.stats.compliance import compliance_block
 from mcmatch.stats.describe import describe
 from mcmatch.stats.streaming import (
     HISTOGRAM_BINS,
@@ -141,6 +143,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     """Nominal solve and Monte Carlo of the config's main condition, with summary statistics and yield."""
     options = options or RunOptions()
     started = time.perf_counter()
+    config = resolve_loads(config)  # the summary and every analysis see the sized load currents
     study = prepare(config)
     nominal = nominal_measures(study)
     samples = config.analysis.samples
@@ -185,6 +188,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
             "machine": f"{platform.system()} {platform.machine()}, {platform.node()}",
         },
     }
+    summary["compliance"] = compliance_block(summary["operating_point"], stats.out_of_saturation, stats.samples)
     # analyses (corners, area, contributions, yield extras) work from the summary, never from raw main-run rows
     from mcmatch.studies.analyses import run_analyses  # local: keeps this hook a one-place edit
 
@@ -192,6 +196,9 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     from mcmatch.studies.extra import run_extra_analyses  # placements, high-sigma yield, bank yield
 
     summary.update(run_extra_analyses(config, study, summary, options))
+    from mcmatch.studies.variation import run_variation  # local and global parts of the spread (variation mode)
+
+    summary.update(run_variation(config, study, summary))
     table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
     return RunResult(summary=summary, table=table, study=study)
