@@ -44,7 +44,7 @@ __all__ = [
 #: Names served from their modules on first use (module attribute access, PEP 562).
 _LAZY = {
     "Config": "mcmatch.config.schema",
-    "load_config": "mcmatch.config.schema",
+    "load_config": "mcmatch.config.loading",
     "ConfigError": "mcmatch.errors",
     "McmatchError": "mcmatch.errors",
     "SolveError": "mcmatch.errors",

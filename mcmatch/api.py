@@ -8,7 +8,8 @@ import os
 from pathlib import Path
 from typing import Any
 
-from mcmatch.config.schema import Config, load_config
+from mcmatch.config.loading import load_config
+from mcmatch.config.schema import Config
 from mcmatch.results.folder import check_run_target
 from mcmatch.results.run_folder import Result, write_run
 from mcmatch.results.summary import Summary

@@ -63,7 +63,7 @@ def test_import_is_light_and_every_public_name_resolves():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
-    import mcmatch.run.engine  # noqa: F401  (the subpackage mcmatch.run must not hide a public name)
+    import mcmatch.run.study  # noqa: F401  (the subpackage mcmatch.run must not hide a public name)
 
     for name in mcmatch.__all__:
         assert getattr(mcmatch, name) is not None

@@ -14,7 +14,7 @@ from conftest import ROOT
 from pydantic import BaseModel
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.errors import ConfigError
 from mcmatch.results.summary import (
     SCHEMA_VERSION,
@@ -112,12 +112,12 @@ def test_a_missing_key_fails_and_new_keys_are_welcome(summaries):
     with pytest.raises(SummaryError, match="yield.target"):
         finish_summary(missing)
     grown = copy.deepcopy(summaries["demo"])
-    grown["compliance"] = {"min_headroom": 0.04}  # DESIGN.md section 3: add keys, never rename
-    grown["corners"][0]["compliance"] = {"min_headroom": -0.008}
+    grown["supply_rejection"] = {"ratio_db": 40.0}  # DESIGN.md section 3: add keys, never rename
+    grown["corners"][0]["supply_rejection"] = {"ratio_db": 38.0}
     grown["measures"]["gain_error"]["skew"] = 0.1
     model = Summary.model_validate(finish_summary(grown))
-    assert model.to_dict()["compliance"] == {"min_headroom": 0.04}
-    assert model.corners[0].model_extra == {"compliance": {"min_headroom": -0.008}}
+    assert model.to_dict()["supply_rejection"] == {"ratio_db": 40.0}
+    assert model.corners[0].model_extra == {"supply_rejection": {"ratio_db": 38.0}}
 
 
 def test_a_saved_summary_loads_back_with_its_non_finite_values(summaries, tmp_path):

@@ -32,6 +32,7 @@ from mcmatch.results.summary_blocks import (
     SpecLimits,
     StreamStatistics,
 )
+from mcmatch.results.summary_design import Compliance, Sizing, Variation
 from mcmatch.results.summary_studies import (
     AreaStudy,
     Bank,
@@ -44,7 +45,7 @@ from mcmatch.results.summary_studies import (
 
 #: Version of the summary's layout. Raised by one whenever a key is added; keys are never renamed or removed, so a
 #: reader of version n reads every later file. 0: a summary written before the field existed.
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 
 class SummaryError(McmatchError):
@@ -81,6 +82,11 @@ class Summary(Block):
     placement_best: str | None = Field(None, description="name of the best candidate")
     high_sigma: dict[str, HighSigma] | None = Field(None, description="[analysis.high_sigma]: per spec'd measure")
     bank: Bank | None = Field(None, description="[analysis.bank] or a detected bank: die yield of all channels")
+    compliance: Compliance | None = Field(None, description="saturation margin of the main run")
+    variation: Variation | None = Field(
+        None, description='[analysis] variation "global"/"both": local and global parts'
+    )
+    sizing: Sizing | None = Field(None, description="[analysis.sizing]: the W and L for the target")
     non_finite_values: list[str] | None = Field(
         None, description="key paths whose value was NaN or inf, written as null (JSON has no NaN)"
     )

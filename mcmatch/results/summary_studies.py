@@ -9,6 +9,7 @@ from typing import Literal
 from pydantic import Field
 
 from mcmatch.results.summary_blocks import Block, YieldBlock
+from mcmatch.results.summary_design import Compliance, TiedCorner
 
 
 # --------------------------------------------------------------------------------------------- corners
@@ -44,6 +45,7 @@ class CornerEntry(Block):
     samples: int | None = Field(None, description="Monte Carlo samples at this point")
     failed_solves: int | None = Field(None, description="samples whose solve failed")
     error: str | None = Field(None, description="why the point has no operating point")
+    compliance: Compliance | None = Field(None, description="saturation margin at this point")
 
 
 class WorstCorner(Block):
@@ -55,6 +57,14 @@ class WorstCorner(Block):
     value: float | None = Field(description="the criterion's value: a yield [1] or a spread [unit]")
     criterion: str = Field(description="which rule chose the point")
     spread: float | None = Field(description="|mean - main nominal| + 3 std [unit]")
+    margin_sigma: float | None = Field(None, description="spec margin min over limits of (limit - mean)/std [sigma]")
+    margin_error: float | None = Field(None, description="its standard error, sqrt(1/N + z^2/(2(N-1))) [sigma]")
+    limit: str | None = Field(None, description='which limit the margin is measured to: "min" or "max"')
+    mean: float | None = Field(None, description="the corner's mean [unit]")
+    std: float | None = Field(None, description="the corner's std [unit]")
+    spec_yield: float | None = Field(None, description="the corner's spec yield [1]")
+    tied: list[TiedCorner] | None = Field(None, description="corners within two combined standard errors")
+    label: str | None = Field(None, description='the tied corners named together, e.g. "ss, -40 degC, any supply"')
 
 
 # --------------------------------------------------------------------------------------------- area
@@ -78,6 +88,7 @@ class AreaPoint(Block):
     samples: int | None = Field(None, description="Monte Carlo samples")
     failed_solves: int | None = Field(None, description="samples whose solve failed")
     error: str | None = Field(None, description="why the point has no operating point")
+    compliance: Compliance | None = Field(None, description="saturation margin at this point")
 
 
 class FloorTest(Block):
