@@ -9,7 +9,8 @@ import pytest
 
 from mcmatch.cli import main
 from mcmatch.run.bench import CIRCUITS, POLARITIES, TOLERANCE, agreement, bench_config, reference_solve
-from mcmatch.run.engine import nominal_measures, prepare, run_chunk
+from mcmatch.run.chunks import run_chunk
+from mcmatch.run.study import nominal_measures, prepare
 
 
 @pytest.mark.parametrize("kind", POLARITIES)

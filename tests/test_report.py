@@ -296,8 +296,11 @@ def test_report_command_rerenders_without_solving(demo_run, monkeypatch, tmp_pat
     def no_solving(*args, **kwargs):
         raise AssertionError("mcmatch report must not solve")
 
-    monkeypatch.setattr("mcmatch.run.engine.monte_carlo", no_solving)
-    monkeypatch.setattr("mcmatch.run.engine.prepare", no_solving)
+    # every place a command looks the solving entry points up
+    for target in ("mcmatch.studies.pipeline.prepare", "mcmatch.studies.analyses.prepare", "mcmatch.run.study.prepare"):
+        monkeypatch.setattr(target, no_solving)
+    for target in ("mcmatch.studies.analyses.monte_carlo", "mcmatch.run.chunks.monte_carlo"):
+        monkeypatch.setattr(target, no_solving)
     assert main(["report", str(run), "--quiet"]) == 0
     # same summary, same samples (CSV round-trips floats exactly), same seed-free figures: the same bytes
     assert (run / "report.html").read_bytes() == original

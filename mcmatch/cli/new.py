@@ -9,19 +9,22 @@ import tomllib
 from pathlib import Path
 
 import mcmatch
-from mcmatch.config.schema import Measure, Netlist, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Measure, Netlist
 from mcmatch.config.templates import (
     DEFAULT_WIDTH,
     TEMPLATES,
     expand_template,
-    format_quantity,
     get_template,
     netlist_toml,
     parameter_names,
     toml_value,
 )
 from mcmatch.errors import ConfigError
+from mcmatch.results.atomic import write_text_atomic
 from mcmatch.results.folder import check_output_file
+from mcmatch.run.loads import resolve_loads
+from mcmatch.units import format_quantity
 
 #: The technology library beside the package in a source checkout (configs/technologies/NAME.toml).
 TECHNOLOGY_LIBRARY = Path(mcmatch.__file__).resolve().parent.parent / "configs" / "technologies"
@@ -74,6 +77,7 @@ MEASURE_MEANINGS = {
     "voltage": "node voltage to gnd [V]",
     "ratio": "ratio error against the ideal ratio [fraction]",
     "resistance": "small-signal resistance from the node to gnd [ohm]",
+    "port_resistance": "small-signal resistance seen by the voltage source, dV/dI [ohm]",
 }
 
 
@@ -226,13 +230,10 @@ def execute(args: argparse.Namespace) -> int:
         raise ConfigError("the file exists; choose another --out or add --force", str(out), "--out")
     text = starter_config(args.template, args.type, args.technology, folder, args.expanded)
     # the starter must run as written: validate it where it will live before writing anything
-    config_from_dict(tomllib.loads(text), (folder / (out.name if out else "starter.toml")), text)
+    resolve_loads(config_from_dict(tomllib.loads(text), (folder / (out.name if out else "starter.toml")), text))
     if out is None:
         sys.stdout.write(text)
         return 0
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.tmp")
-    tmp.write_text(text, encoding="utf-8")
-    tmp.replace(out)
+    write_text_atomic(out, text)
     print(f"wrote {out}: next `mcmatch check {out}`, then `mcmatch run {out}`", file=sys.stderr)
     return 0

@@ -51,7 +51,7 @@ def check_jobs(jobs: int | None, cluster: bool = False) -> None:
     if cluster:
         check_integer("--jobs", jobs, 0, None, " (0: one per worker thread of the cluster)")
         return
-    from mcmatch.run.engine import usable_cores
+    from mcmatch.run.chunks import usable_cores
 
     cores = usable_cores()
     note = f" (this machine runs {cores} at once; 0: automatic, -1: all cores, -2: all but one)"

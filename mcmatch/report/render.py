@@ -9,7 +9,6 @@ re-renders a saved run folder. Values stay SI until the formatting helpers of :m
 
 from __future__ import annotations
 
-import json
 import os
 import tomllib
 from pathlib import Path
@@ -47,7 +46,6 @@ __all__ = [
     "sampling_section",
     "sampling_text",
     "write_report",
-    "write_text_atomic",
     "yield_text",
 ]
 
@@ -134,20 +132,14 @@ def write_report(run_dir: str | os.PathLike, out: str | os.PathLike | None = Non
 
     Raises ConfigError naming the file when the folder is not a readable run folder. Returns the report's path.
     """
+    from mcmatch.results.summary import read_summary
     from mcmatch.results.tables import read_samples
 
     folder = Path(run_dir)
     summary_path = folder / "summary.json"
     if not folder.is_dir():
         raise ConfigError("expected a run folder written by 'mcmatch run'", file=str(folder))
-    try:
-        summary = json.loads(summary_path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ConfigError("no summary.json: expected a run folder written by 'mcmatch run'", file=str(folder)) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise ConfigError(f"expected the JSON summary of a run ({exc})", file=str(summary_path)) from None
-    if not isinstance(summary, dict) or "measures" not in summary:
-        raise ConfigError("expected a run summary with a 'measures' object", file=str(summary_path), key="measures")
+    summary = read_summary(summary_path)  # checked against results.summary.Summary; ConfigError if damaged
     samples = None
     for name in ("samples.parquet", "samples.csv"):
         path = folder / name
@@ -167,24 +159,7 @@ def write_report(run_dir: str | os.PathLike, out: str | os.PathLike | None = Non
     config_text = config_path.read_text(encoding="utf-8") if config_path.exists() else ""
     html = render_report(summary, samples, config_text)
     target = Path(out) if out is not None else folder / "report.html"
+    from mcmatch.results.atomic import write_text_atomic
+
     write_text_atomic(target, html)
     return target
-
-
-def write_text_atomic(path: Path, text: str) -> None:
-    """Write `text` to a temporary sibling of `path`, fsync it, then os.replace: never a half-written file."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.parent / f".{path.name}.{os.getpid()}-{os.urandom(4).hex()}.tmp"
-    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # the umask applies, as for any new file
-    try:
-        if path.exists():
-            os.chmod(tmp, path.stat().st_mode & 0o777)  # a replaced report keeps its mode
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise

@@ -17,10 +17,13 @@ from pathlib import Path
 import numpy as np
 from scipy import optimize
 
-from mcmatch.config.schema import Config, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Config
 from mcmatch.draws.mismatch import mismatch_from_normals, perturbed, standard_normals
-from mcmatch.model.circuit import evaluate_measures, residual_jacobian
-from mcmatch.run.engine import Study, chunk_ranges, prepare, run_chunk, solve_unknowns
+from mcmatch.model.circuit import residual_jacobian
+from mcmatch.run.chunks import chunk_ranges, run_chunk
+from mcmatch.run.study import Study, prepare, solve_unknowns
+from mcmatch.solve.measures import mna_measures
 
 #: Illustrative 180 nm-class technology, INVENTED VALUES (same spirit as configs/technologies/demo180.toml).
 TECHNOLOGY: dict = {
@@ -161,7 +164,7 @@ def reference_run(study: Study, start: int, stop: int) -> tuple[np.ndarray, dict
     values: dict[str, np.ndarray] = {key: np.empty(n) for key in study.measures}
     for s in range(n):
         xs[s], ok[s] = reference_solve(study, vth[s], beta[s])
-        one = evaluate_measures(study.circuit, study.measures, xs[s : s + 1], vth[s : s + 1], beta[s : s + 1])
+        one = mna_measures(study.circuit, study.measures, xs[s : s + 1], vth[s : s + 1], beta[s : s + 1])
         for key, v in one.items():
             values[key][s] = v[0]
     return xs, values, ok
