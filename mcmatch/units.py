@@ -1,4 +1,5 @@
-"""Quantity strings at the edge ("4 um", "5 mV*um", "1 %*um", "27 degC") to SI floats.
+"""Quantities at the edge: strings ("4 um", "5 mV*um", "1 %*um", "27 degC") to SI floats, and SI floats back to
+strings with an engineering prefix (:func:`format_quantity`).
 
 This is the only module that uses pint. Nothing it returns is a pint object: callers get plain floats in the SI
 unit they asked for, so nothing unit-aware ever crosses a process boundary.
@@ -100,3 +101,43 @@ def parse_quantity(value: object, unit: str) -> float:
     if not math.isfinite(result):
         raise UnitError(f"{expected}, got {quote(value)}, which is not finite in SI")
     return result
+
+
+#: Engineering prefixes, largest first: (scale, ASCII prefix as the parser reads it, display prefix).
+PREFIXES = (
+    (1e9, "G", "G"),
+    (1e6, "M", "M"),
+    (1e3, "k", "k"),
+    (1.0, "", ""),
+    (1e-3, "m", "m"),
+    (1e-6, "u", "\u00b5"),
+    (1e-9, "n", "n"),
+    (1e-12, "p", "p"),
+    (1e-15, "f", "f"),
+)
+#: Display forms of units (``symbols=True``).
+UNIT_SYMBOLS = {"ohm": "\u03a9", "A/V^2": "A/V\u00b2", "V^0.5": "V^\u00bd"}
+
+
+def format_quantity(value: float, unit: str, digits: int = 6, *, symbols: bool = False) -> str:
+    """An SI `value` in `unit` as a quantity string with an engineering prefix and `digits` significant digits.
+
+    4e-06, "m" -> "4 um"; 0.9, "V" -> "0.9 V" (voltages from 0.1 V to 1 kV stay in volts); 0.0125, "1" -> "1.25 %".
+    The ASCII form parses back with :func:`parse_quantity` to `digits` significant digits; ``symbols=True`` gives the
+    display form ("4 \u00b5m", "22 k\u03a9") for reports. Zero and non-finite values carry no prefix ("0 A", "nan A").
+    """
+    symbol = UNIT_SYMBOLS.get(unit, unit) if symbols else unit
+    if unit == "1":
+        return f"{float(f'{value * 100:.{digits}g}'):.{digits}g} %"
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g} {symbol}"
+    magnitude = abs(value)
+    if unit == "V" and 0.1 <= magnitude < 1000:  # node voltages read best in volts
+        return f"{float(f'{value:.{digits}g}'):.{digits}g} {symbol}"
+    index = next((i for i, (s, _, _) in enumerate(PREFIXES) if magnitude >= s * 0.9999999), len(PREFIXES) - 1)
+    number = float(f"{value / PREFIXES[index][0]:.{digits}g}")
+    if abs(number) >= 1000 and index > 0:  # rounding carried into the next prefix: 999.9996 u -> 1 m
+        index -= 1
+        number = float(f"{value / PREFIXES[index][0]:.{digits}g}")
+    scale, ascii_prefix, display_prefix = PREFIXES[index]
+    return f"{number:.{digits}g} {display_prefix if symbols else ascii_prefix}{symbol}"

@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.config.schema import Limits, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Limits
 from mcmatch.stats.area import (
     FLOOR_CHI2,
     SigmaFit,

@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.config.schema import config_from_dict, load_config
+from mcmatch.config.loading import config_from_dict, load_config
 from mcmatch.errors import ConfigError
-from mcmatch.run.engine import prepare
+from mcmatch.run.study import prepare
 from mcmatch.stats.bank import bank_yield
 from mcmatch.studies.extra import bank_channels, run_bank, run_extra_analyses
 

@@ -18,8 +18,9 @@ from mcmatch.run.bench import (
     designer_agreement,
     latency,
 )
-from mcmatch.run.engine import nominal_measures, prepare, run_chunk
-from mcmatch.run.reference import designer_reference, mna_solve
+from mcmatch.run.bench_reference import designer_reference, mna_solve
+from mcmatch.run.chunks import run_chunk
+from mcmatch.run.study import nominal_measures, prepare
 
 
 @pytest.mark.parametrize("kind", POLARITIES)

@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.model.devices import thermal_voltage
 from mcmatch.model.operating_point import device_operating_points, ekv_saturation_voltage, warnings_for
-from mcmatch.run.engine import nominal_measures, prepare
+from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.units import parse_quantity
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -22,13 +22,14 @@ import pandas as pd
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.draws.mismatch import BLOCK
 from mcmatch.errors import ConfigError
 from mcmatch.results.tables import read_samples
-from mcmatch.run import engine
+from mcmatch.run import chunks
+from mcmatch.run.chunks import map_chunks, run_chunk
 from mcmatch.run.cluster import cluster_session, parse_address
-from mcmatch.run.engine import map_chunks, prepare, run_chunk
+from mcmatch.run.study import prepare
 
 DEMO = Path(__file__).resolve().parents[1] / "configs" / "demo.toml"
 
@@ -138,7 +139,7 @@ def test_local_cluster_gives_the_same_samples_as_one_job(tmp_path, monkeypatch):
             sent.extend(ranges)
         return map_chunks(study, ranges, jobs, backend, *rest, **kwargs)
 
-    monkeypatch.setattr(engine, "map_chunks", spy)
+    monkeypatch.setattr(chunks, "map_chunks", spy)  # where stream_chunks looks it up
     assert main([*args, "--cluster", "local:2", "--out", str(tmp_path / "cluster")]) == 0
     assert sum(stop - start for start, stop in sent) > 0  # chunks did go to the cluster (the runner may solve a pilot)
     monkeypatch.undo()

@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -9,17 +9,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from mcmatch.config.schema import config_from_dict
-from mcmatch.model.circuit import evaluate_measures
-from mcmatch.model.devices import ekv, square_law
-from mcmatch.model.sensitivity import (
-    ekv_hessian,
-    measure_sensitivities,
-    parameter_labels,
-    parameter_sigmas,
-    square_law_hessian,
-)
-from mcmatch.run.engine import monte_carlo, nominal_point, prepare
+from mcmatch.config.loading import config_from_dict
+from mcmatch.model.devices import ekv, ekv_hessian, square_law, square_law_hessian
+from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
+from mcmatch.run.chunks import monte_carlo
+from mcmatch.run.study import nominal_point, prepare
+from mcmatch.solve.measures import mna_measures
 from mcmatch.stats.contributions import contribution_table, std_interval
 from mcmatch.studies.analyses import run_contributions
 
@@ -157,7 +152,7 @@ def _finite_difference_sensitivities(config, step_vth=1e-5, step_beta=1e-5):
             shifted = circuit.with_params(params.with_shift(dvth, scale))
             x = nominal_point(shifted, guess=study.x_nominal)
             p = shifted.params
-            values.append(evaluate_measures(shifted, study.measures, x[None], p.vth[None], p.beta[None]))
+            values.append(mna_measures(shifted, study.measures, x[None], p.vth[None], p.beta[None]))
         step = step_vth if col < nd else step_beta
         for name in columns:
             columns[name][col] = (values[0][name][0] - values[1][name][0]) / (2 * step)

@@ -10,12 +10,13 @@ import pytest
 from scipy import optimize
 
 from mcmatch.cli import main
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.draws.mismatch import BLOCK, standard_normals
 from mcmatch.model.circuit import GMIN, residual_jacobian
 from mcmatch.model.technology import pair_sigma, pelgrom_sigma
 from mcmatch.results.tables import read_samples
-from mcmatch.run.engine import monte_carlo, nominal_measures, prepare, run_chunk, solve_samples
+from mcmatch.run.chunks import monte_carlo, run_chunk
+from mcmatch.run.study import nominal_measures, prepare, solve_samples
 
 # Test technologies: round textbook-style numbers (value from memory of typical classroom examples), not a process.
 TEXTBOOK = {
@@ -215,12 +216,12 @@ def test_batched_solve_matches_scipy_root(kind, builder, technology):
     batched = solve_samples(study, dvth, dbeta)
     assert batched["converged"].all()
     from mcmatch.draws.mismatch import perturbed
-    from mcmatch.model.circuit import evaluate_measures
+    from mcmatch.solve.measures import mna_measures
 
     vth, beta = perturbed(p, dvth, dbeta)
     for s in range(n):
         x = _reference_solve(study, vth[s], beta[s])
-        ref = evaluate_measures(study.circuit, study.measures, x[None, :], vth[s : s + 1], beta[s : s + 1])
+        ref = mna_measures(study.circuit, study.measures, x[None, :], vth[s : s + 1], beta[s : s + 1])
         for key, values in ref.items():
             if study.measures[key].kind == "ratio":  # ratio/ideal - 1: compare the ratio itself, 1e-9 relative
                 assert batched[key][s] + 1 == pytest.approx(values[0] + 1, rel=1e-9), (key, s)

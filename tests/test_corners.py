@@ -10,11 +10,12 @@ import pytest
 
 import mcmatch.studies.analyses
 from mcmatch.cli import main
-from mcmatch.config.schema import Limits, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Limits
 from mcmatch.errors import SolveError
 from mcmatch.model.devices import thermal_voltage
 from mcmatch.model.technology import device_parameters
-from mcmatch.stats.corners import CRITERION_SPREAD, corner_grid, worst_corners
+from mcmatch.stats.corners import CRITERION_MARGIN, CRITERION_SPREAD, corner_grid, worst_corners
 from mcmatch.studies.analyses import run_corners
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -156,22 +157,57 @@ def test_a_corner_without_operating_point_is_reported_not_raised(monkeypatch):
     assert worst["err"]["process"] in {"tt", "ff"}
 
 
-def test_worst_corner_is_lowest_yield_or_largest_spread():
-    # common practice, no source: worst = lowest spec yield for a spec'd measure, else |mean - nominal| + 3 std
-    def entry(process, fraction, mean, std):
+def test_worst_corner_is_smallest_sigma_margin_or_largest_spread():
+    # common practice, no source: with a spec, worst = smallest min((max - mean)/std, (mean - min)/std); without one,
+    # the largest |mean - nominal| + 3 std
+    def entry(process, fraction, mean, std, samples=1000):
         return {
             "process": process,
             "temperature": 300.15,
             "supply": 1.8,
             "measures": {"a": {"mean": mean, "std": std}, "b": {"mean": mean, "std": std}},
             "yield": {"fraction": fraction, "specs": {"a": {"fraction": fraction}}},
+            "samples": samples,
+            "failed_solves": 0,
         }
 
+    # margins: p1 3.0 sigma, p2 (3 - 0.1) / 0.5 = 5.8, p3 (-2 + 3) / 0.5 = 2.0 (to the min limit)
     entries = [entry("p1", 0.99, 0.0, 1.0), entry("p2", 0.95, 0.1, 0.5), entry("p3", 0.999, -2.0, 0.5)]
     worst = worst_corners(entries, {"a": {"nominal": 0.0}, "b": {"nominal": 0.0}}, {"a": Limits(min=-3, max=3)})
-    assert worst["a"]["process"] == "p2" and worst["a"]["value"] == 0.95
+    assert worst["a"]["process"] == "p3" and worst["a"]["value"] == pytest.approx(2.0)
+    assert worst["a"]["margin_sigma"] == pytest.approx(2.0) and worst["a"]["limit"] == "min"
+    assert worst["a"]["criterion"] == CRITERION_MARGIN and worst["a"]["spec_yield"] == 0.999
+    # standard error of the margin: sqrt(1/N + z^2 / (2 (N - 1))), the normal-theory first-order error
+    assert worst["a"]["margin_error"] == pytest.approx(math.sqrt(1 / 1000 + 4 / (2 * 999)))
+    assert [t["process"] for t in worst["a"]["tied"]] == ["p3"]  # p1 is 1 sigma away: ~14 standard errors
     assert worst["b"]["process"] == "p3" and worst["b"]["value"] == pytest.approx(3.5)
     assert worst["b"]["criterion"] == CRITERION_SPREAD
+
+
+def test_corners_within_sampling_error_are_reported_together():
+    # common practice, no source: margins 2.00 and 2.03 sigma from 200 samples each (standard error about 0.12)
+    # cannot be told apart; 2.6 sigma can (about 3.4 combined standard errors away)
+    def entry(process, temperature, supply, mean):
+        return {
+            "process": process,
+            "temperature": temperature,
+            "supply": supply,
+            "measures": {"a": {"mean": mean, "std": 1.0}},
+            "yield": {"specs": {"a": {"fraction": 0.99}}},
+            "samples": 200,
+            "failed_solves": 0,
+        }
+
+    entries = [
+        entry("ss", 233.15, 1.62, 8.0),
+        entry("ss", 233.15, 1.98, 7.97),
+        entry("tt", 233.15, 1.62, 7.4),
+        entry("tt", 233.15, 1.98, 7.4),
+    ]
+    worst = worst_corners(entries, {"a": {"nominal": 0.0}}, {"a": Limits(min=None, max=10.0)})["a"]
+    assert worst["process"] == "ss" and worst["supply"] == 1.62
+    assert {t["supply"] for t in worst["tied"]} == {1.62, 1.98}
+    assert worst["label"] == "ss, -40 degC, any supply"
 
 
 @pytest.mark.slow

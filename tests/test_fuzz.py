@@ -18,7 +18,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.errors import ConfigError
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -11,8 +11,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from mcmatch.config.schema import Limits, config_from_dict, load_config
-from mcmatch.run.engine import monte_carlo, prepare
+from mcmatch.config.loading import config_from_dict, load_config
+from mcmatch.config.schema import Limits
+from mcmatch.run.chunks import monte_carlo
+from mcmatch.run.study import prepare
 from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.yields import passes
 from mcmatch.studies.extra import run_extra_analyses, run_high_sigma

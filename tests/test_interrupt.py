@@ -107,7 +107,7 @@ def test_a_signal_lost_in_a_finaliser_still_ends_the_run(demo_project, tmp_path,
     lost = []  # what Python reports as "Exception ignored in ..."
     monkeypatch.setattr(sys, "unraisablehook", lambda u: lost.append(u.exc_type))
     monkeypatch.setattr(mcmatch.studies.pipeline, "run_chunk", chunk_then_signal)
-    monkeypatch.setattr(mcmatch.run.engine, "run_chunk", chunk_then_signal)
+    monkeypatch.setattr(mcmatch.run.chunks, "run_chunk", chunk_then_signal)  # the chunk task of map_chunks
     assert main([*args, "--samples", str(3 * BLOCK)]) == status
     assert len(lost) == 1 and not issubclass(lost[0], Exception)  # the exception was indeed lost where raised
     assert "nothing was written" in capsys.readouterr().err

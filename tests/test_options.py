@@ -14,9 +14,9 @@ import pytest
 from conftest import ROOT, snapshot
 
 from mcmatch.cli import main
-from mcmatch.config.schema import load_config
+from mcmatch.config.loading import load_config
 from mcmatch.errors import ConfigError
-from mcmatch.run.engine import usable_cores
+from mcmatch.run.chunks import usable_cores
 
 FAST = ["--samples", "20", "--quiet", "--no-report"]
 
@@ -29,7 +29,7 @@ def no_solving(monkeypatch):
         raise AssertionError("the run started although an option was invalid")
 
     monkeypatch.setattr("mcmatch.studies.pipeline.run_study", refuse)  # `mcmatch run` imports it when it runs
-    monkeypatch.setattr("mcmatch.run.engine.prepare", refuse)
+    monkeypatch.setattr("mcmatch.studies.pipeline.prepare", refuse)  # where the run prepares its condition
 
 
 def refused(argv, capsys, tmp_path, *words):

@@ -18,8 +18,8 @@ from conftest import ROOT, snapshot
 
 from mcmatch.cli import main
 from mcmatch.errors import ConfigError
+from mcmatch.results.atomic import write_run_folder
 from mcmatch.results.folder import MARKER, host_tag
-from mcmatch.results.tables import write_run_folder
 
 FAST = ["--samples", "20", "--quiet", "--no-report"]
 
@@ -170,7 +170,7 @@ def test_run_folders_follow_the_umask(demo_project, tmp_path, mask):
 def test_a_temporary_folder_left_by_a_killed_run_is_removed_by_the_next(demo_project, tmp_path):
     out = tmp_path / "run"
     writer = (
-        "import sys, time\nfrom pathlib import Path\nfrom mcmatch.results.tables import write_run_folder\n"
+        "import sys, time\nfrom pathlib import Path\nfrom mcmatch.results.atomic import write_run_folder\n"
         "def fill(folder):\n    (folder / 'summary.json').write_text('{}')\n    print(folder, flush=True)\n"
         "    time.sleep(600)\n"
         f"write_run_folder(Path({str(out)!r}), fill)\n"

@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import Placement, config_from_dict
+from mcmatch.config.loading import config_from_dict
+from mcmatch.config.schema import Placement
 from mcmatch.draws.placement import (
     cell_layout,
     count_warnings,
@@ -19,7 +20,7 @@ from mcmatch.draws.placement import (
     distance_terms,
     pick_best,
 )
-from mcmatch.run.engine import prepare
+from mcmatch.run.study import prepare
 from mcmatch.studies.extra import run_extra_analyses, run_placements
 
 CONFIGS = Path(__file__).resolve().parent.parent / "configs"

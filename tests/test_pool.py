@@ -19,7 +19,8 @@ from mcmatch.cli import main
 from mcmatch.draws.mismatch import BLOCK
 from mcmatch.results.tables import read_samples
 from mcmatch.run import pool
-from mcmatch.run.engine import map_chunks, prepare, run_chunk
+from mcmatch.run.chunks import map_chunks, run_chunk
+from mcmatch.run.study import prepare
 
 pytestmark = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the fork pool is the Linux default")
 
@@ -73,7 +74,7 @@ def test_an_unknown_pool_is_refused_before_any_work(demo_project, tmp_path, caps
 
 @pytest.fixture
 def study():
-    from mcmatch.config.schema import load_config
+    from mcmatch.config.loading import load_config
 
     return prepare(load_config(DEMO))
 

@@ -12,7 +12,7 @@ import pytest
 from scipy import stats
 from scipy.special import ndtr
 
-from mcmatch.config.schema import config_from_dict
+from mcmatch.config.loading import config_from_dict
 from mcmatch.draws.mismatch import (
     BLOCK,
     SOBOL_SCRAMBLINGS,
@@ -21,7 +21,8 @@ from mcmatch.draws.mismatch import (
     sobol_jump,
     standard_normals,
 )
-from mcmatch.run.engine import prepare, run_chunk, with_seed
+from mcmatch.run.chunks import run_chunk
+from mcmatch.run.study import prepare, with_seed
 from mcmatch.stats import streaming
 from mcmatch.studies.pipeline import RunOptions, run_study
 

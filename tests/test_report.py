@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import base64
 import copy
 import json
 import re
@@ -227,22 +226,29 @@ def test_reports_are_valid_html5(demo_run, plain_run):
         html5lib.HTMLParser(strict=True).parse((run / "report.html").read_text(encoding="utf-8"))
 
 
-def test_demo_report_figures_are_embedded_images(demo_run):
+def test_demo_report_figures_are_inline_svg_with_real_text(demo_run):
     summary, html = load(demo_run)
     page = parse(html)
-    images = [a for tag, a in page.tags if tag == "img"]
+    assert not [a for tag, a in page.tags if tag == "img"]  # no image files, no data: URIs
+    assert "base64" not in html
+    charts = [a for tag, a in page.tags if tag == "svg"]
     classes = [a.get("class", "") for tag, a in page.tags if tag == "figure"]
-    assert len(classes) == len(images)  # one image per figure
+    assert len(classes) == len(charts)  # one chart per figure
     # one histogram per measure, a normal-probability plot per measure with a spec (common practice, no source)
     assert classes.count("fig-hist") == len(summary["measures"])
     assert classes.count("fig-probplot") == min(len(summary["specs"]), MAX_KEY_MEASURES)
     assert "fig-area" in classes and "fig-contrib" in classes and "fig-corners" in classes
-    for a in images:
-        head, _, payload = a["src"].partition(",")
-        assert head in ("data:image/svg+xml;base64", "data:image/png;base64")
-        data = base64.b64decode(payload, validate=True)
-        assert data.lstrip().startswith((b"<?xml", b"<svg", b"\x89PNG"))
-        assert a.get("alt")
+    for a in charts:
+        assert a.get("role") == "img" and a.get("viewbox")
+    # every chart carries an accessible name with its key numbers, and its axis labels are text, not outlines
+    titles = re.findall(r"<svg[^>]*><title>([^<]+)</title>", html)
+    assert len(titles) == len(charts)
+    m = summary["measures"]["gain_error"]
+    hist = next(t for t in titles if t.startswith("histogram of gain_error"))
+    assert eng(m["mean"], "1") in hist and eng(m["std"], "1") in hist
+    assert re.search(r"<text[^>]*>gain_error \[%\]</text>", html)
+    assert re.search(r"<text[^>]*>normal quantile \[sigma\]</text>", html)
+    assert "<path" in html and "<glyph" not in html and "<use" not in html
 
 
 def test_demo_report_states_the_verdict_and_the_worst_corner(demo_run):
@@ -290,8 +296,11 @@ def test_report_command_rerenders_without_solving(demo_run, monkeypatch, tmp_pat
     def no_solving(*args, **kwargs):
         raise AssertionError("mcmatch report must not solve")
 
-    monkeypatch.setattr("mcmatch.run.engine.monte_carlo", no_solving)
-    monkeypatch.setattr("mcmatch.run.engine.prepare", no_solving)
+    # every place a command looks the solving entry points up
+    for target in ("mcmatch.studies.pipeline.prepare", "mcmatch.studies.analyses.prepare", "mcmatch.run.study.prepare"):
+        monkeypatch.setattr(target, no_solving)
+    for target in ("mcmatch.studies.analyses.monte_carlo", "mcmatch.run.chunks.monte_carlo"):
+        monkeypatch.setattr(target, no_solving)
     assert main(["report", str(run), "--quiet"]) == 0
     # same summary, same samples (CSV round-trips floats exactly), same seed-free figures: the same bytes
     assert (run / "report.html").read_bytes() == original
@@ -468,7 +477,7 @@ def test_plot_functions_take_and_return_axes():
 
     rng = np.random.default_rng(1)
     values = rng.normal(1e-5, 1e-7, 500)
-    terms = [{"device": "M$1", "parameter": "vth", "share": 0.7}, {"device": "M2", "parameter": "beta", "share": 0.3}]
+    terms = [{"device": "M<1>", "parameter": "vth", "share": 0.7}, {"device": "M2", "parameter": "beta", "share": 0.3}]
     area = {
         "points": [{"area": a, "measures": {"x": {"std": 1e-9 / np.sqrt(a)}}} for a in (1e-12, 4e-12, 1.6e-11)],
         "fit": {"x": {"k": 1e-9, "floor": 0.0}},
@@ -487,8 +496,10 @@ def test_plot_functions_take_and_return_axes():
         assert ax.has_data()
         mine = plots.new_axes()
         assert function(*args, ax=mine, **kwargs) is mine
-        assert plots.data_uri(ax).startswith("data:image/svg+xml;base64,")
-        assert plots.data_uri(mine, "png").startswith("data:image/png;base64,")
+        svg = str(ax.svg())
+        assert svg.startswith("<svg") and svg.endswith("</svg>") and "<title>" in svg and "<text" in svg
+        assert "url(" not in svg and "http" not in svg  # no reference out of the page
+    assert "M&lt;1&gt; \u00b7 vth" in str(plots.contributions(terms).svg())  # names are escaped text
 
 
 # --------------------------------------------------------------------------------------------- a real browser

@@ -11,11 +11,14 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
-from mcmatch.config.schema import Limits, load_config
+from mcmatch.config.loading import load_config
+from mcmatch.config.schema import Limits
 from mcmatch.draws.mismatch import BLOCK
 from mcmatch.results.tables import read_samples
-from mcmatch.run import engine
-from mcmatch.run.engine import monte_carlo, nominal_measures, prepare, run_chunk
+from mcmatch.run import chunks
+from mcmatch.run.chunks import monte_carlo, run_chunk
+from mcmatch.run.study import nominal_measures, prepare
+from mcmatch.solve import fast
 from mcmatch.solve.newton import SOLVER_DEFAULTS
 from mcmatch.stats import streaming
 from mcmatch.stats.describe import describe
@@ -199,7 +202,7 @@ def test_sample_results_do_not_depend_on_the_batch_they_are_solved_in(config, mo
     # cannot change a single bit.
     study = prepare(config)
     whole = run_chunk(study, 0, 9000)
-    monkeypatch.setattr(engine, "FAST_BATCH", 1000)
+    monkeypatch.setattr(chunks, "FAST_BATCH", 1000)  # the batches run_chunk draws and solves
     pieces = [run_chunk(study, a, b) for a, b in ((0, 17), (17, 4096), (4096, 9000))]
     for key, values in whole.items():
         np.testing.assert_array_equal(np.concatenate([p[key] for p in pieces]), values, err_msg=key)
@@ -210,13 +213,13 @@ def test_stragglers_are_retried_by_the_reference_path(config, monkeypatch):
     # flagged; here every sample is forced to need that, and the answers must not change beyond the tolerance.
     study = prepare(config)
     normal = run_chunk(study, 0, 300)
-    original = engine.newton_columns
+    original = fast.newton_columns
 
     def one_step(*args, **kwargs):  # one Newton step, and no sample reported converged
         result = original(*args, **{**kwargs, "options": replace(SOLVER_DEFAULTS, max_iterations=1)})
         return replace(result, converged=np.zeros_like(result.converged))
 
-    monkeypatch.setattr(engine, "newton_columns", one_step)
+    monkeypatch.setattr(fast, "newton_columns", one_step)
     retried = run_chunk(study, 0, 300)
     assert retried["retried"].all() and retried["converged"].all()
     assert not normal["retried"].any()

@@ -18,8 +18,9 @@ import time
 
 import numpy as np
 
-from mcmatch.config.schema import Config, load_config
-from mcmatch.run.engine import nominal_measures, prepare
+from mcmatch.config.loading import load_config
+from mcmatch.config.schema import Config
+from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.stats.streaming import sampling_summary
 from mcmatch.studies.pipeline import RunOptions, stream_statistics
 

@@ -20,7 +20,7 @@ from mcmatch.cli import signals
 from mcmatch.errors import ConfigError, SolveError, clean
 
 #: Subcommand modules, in the order `mcmatch --help` lists them.
-COMMANDS = ("run", "check", "templates", "new", "report", "bench", "placements")
+COMMANDS = ("run", "size", "check", "templates", "new", "report", "bench", "placements")
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -36,11 +36,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--supply", help="supply voltage, e.g. '1.62 V', applied to the supply source (default VDD)")
     p.add_argument("--netlist", action="store_true", help="also print the netlist (a template's expansion) as TOML")
     p.add_argument("--json", action="store_true", help="print the operating point as JSON instead of tables")
+    p.add_argument("--corners", action="store_true", help="also show every device's headroom over the corner grid")
     p.set_defaults(execute=execute)
 
 
 def _cell(point: dict, key: str) -> str:
-    from mcmatch.config.templates import format_quantity
+    from mcmatch.units import format_quantity
 
     value = point[key]
     if key == "inversion":
@@ -119,13 +120,17 @@ def _runaway(config, partial: object) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from mcmatch.config.schema import load_config
-    from mcmatch.config.templates import format_quantity, netlist_toml
+    from mcmatch.cli.corner_table import compliance_table
+    from mcmatch.config.loading import load_config
+    from mcmatch.config.templates import netlist_toml
     from mcmatch.model.operating_point import LOW_HEADROOM, device_operating_points, warnings_for
-    from mcmatch.run.engine import nominal_measures, prepare
+    from mcmatch.run.loads import resolve_loads
     from mcmatch.run.multistart import other_operating_points, several_points_warning
+    from mcmatch.run.study import nominal_measures, prepare
+    from mcmatch.studies.compliance import corner_compliance
+    from mcmatch.units import format_quantity
 
-    config = load_config(args.config)
+    config = resolve_loads(load_config(args.config))  # sized before anything is shown: --netlist prints them
     corner, temperature, supply = _conditions(args, config)
     try:
         study = prepare(config, corner=corner, temperature=temperature, supply=supply)
@@ -144,6 +149,7 @@ def execute(args: argparse.Namespace) -> int:
     others = other_operating_points(study)
     if others:
         warnings.append(several_points_warning(nodes, others))
+    corners = corner_compliance(config) if args.corners else None  # studies/compliance.py
     if args.json:
         document = {
             "title": config.title,
@@ -156,6 +162,7 @@ def execute(args: argparse.Namespace) -> int:
             "measures": nominal,
             "warnings": warnings,
             "other_operating_points": others,
+            **({"corners": corners} if corners is not None else {}),
         }
         print(json.dumps(document, indent=2))
         return 0
@@ -181,6 +188,10 @@ def execute(args: argparse.Namespace) -> int:
         shown = f"{value:.6g}" if unit in ("1",) else format_quantity(value, unit, 6)
         print(f"  {name:>16} = {shown}" + (f"  ({value * 100:+.4f} %)" if unit == "1" else ""))
     print()
+    if corners is not None:
+        print("saturation headroom (Vds - Vdsat) at each corner's nominal point:")
+        print(compliance_table(corners))
+        print()
     if warnings:
         print(f"{len(warnings)} warning{'s' if len(warnings) > 1 else ''}:")
         for line in warnings:

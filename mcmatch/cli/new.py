@@ -65,6 +65,7 @@ MEASURE_MEANINGS = {
     "voltage": "node voltage to gnd [V]",
     "ratio": "ratio error against the ideal ratio [fraction]",
     "resistance": "small-signal resistance from the node to gnd [ohm]",
+    "port_resistance": "small-signal resistance seen by the voltage source, dV/dI [ohm]",
 }
 
 
@@ -133,7 +134,8 @@ def _measure_table(measure: Measure) -> str:
 
 def _parameter_lines(name: str, polarity: str, supply: float) -> list[str]:
     """`key = value` lines of every template parameter, each under a comment saying what it means."""
-    from mcmatch.config.templates import DEFAULT_WIDTH, TEMPLATES, format_quantity, parameter_names, toml_value
+    from mcmatch.config.templates import DEFAULT_WIDTH, TEMPLATES, parameter_names, toml_value
+    from mcmatch.units import format_quantity
 
     model = TEMPLATES[name].parameters
     lines = []
@@ -219,8 +221,9 @@ def starter_config(name: str, polarity: str, technology: str, folder: Path, expa
 
 
 def execute(args: argparse.Namespace) -> int:
-    from mcmatch.config.schema import config_from_dict
+    from mcmatch.config.loading import config_from_dict
     from mcmatch.config.templates import get_template
+    from mcmatch.results.atomic import write_text_atomic
     from mcmatch.results.folder import check_output_file
 
     get_template(args.template, "command line")
@@ -232,13 +235,12 @@ def execute(args: argparse.Namespace) -> int:
     # the starter must run as written: validate it where it will live before writing anything
     import tomllib
 
-    config_from_dict(tomllib.loads(text), (folder / (out.name if out else "starter.toml")), text)
+    from mcmatch.run.loads import resolve_loads
+
+    resolve_loads(config_from_dict(tomllib.loads(text), (folder / (out.name if out else "starter.toml")), text))
     if out is None:
         sys.stdout.write(text)
         return 0
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name(f".{out.name}.tmp")
-    tmp.write_text(text, encoding="utf-8")
-    tmp.replace(out)
+    write_text_atomic(out, text)
     print(f"wrote {out}: next `mcmatch check {out}`, then `mcmatch run {out}`", file=sys.stderr)
     return 0

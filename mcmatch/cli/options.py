@@ -52,7 +52,7 @@ def check_jobs(jobs: int | None, cluster: bool = False) -> None:
     if cluster:
         check_integer("--jobs", jobs, 0, None, " (0: one per worker thread of the cluster)")
         return
-    from mcmatch.run.engine import usable_cores
+    from mcmatch.run.chunks import usable_cores
     from mcmatch.run.pool import pool_kind
 
     pool_kind()  # MCMATCH_POOL names a pool this machine has, or exit 2 before any work

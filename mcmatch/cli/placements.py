@@ -33,9 +33,10 @@ def _percent_or_si(value: float | None, unit: str) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from mcmatch.config.schema import Analysis, Placement, load_config
+    from mcmatch.config.loading import load_config
+    from mcmatch.config.schema import Analysis, Placement
     from mcmatch.results.folder import check_output_file
-    from mcmatch.run.engine import prepare
+    from mcmatch.run.study import prepare
     from mcmatch.studies.extra import run_placements
 
     check_overrides(Placement, samples=args.samples)
@@ -59,8 +60,10 @@ def execute(args: argparse.Namespace) -> int:
     entries, best = run_placements(config, study, _Options(), samples=args.samples)
     if args.plot:
         from mcmatch.report.figure_placement import placement_figure
+        from mcmatch.results.atomic import atomic_file
 
-        placement_figure(entries).savefig(args.plot)
+        with atomic_file(args.plot, "wb") as handle:  # never half a drawing
+            placement_figure(entries).savefig(handle, format=args.plot.rsplit(".", 1)[-1].lower())
     if args.json:
         json.dump({"placements": entries, "placement_best": best}, sys.stdout, indent=2, allow_nan=False)
         print()

@@ -14,8 +14,12 @@ from mcmatch.cli import signals
 from mcmatch.cli.options import check_format, check_jobs, check_overrides
 
 
-def add_parser(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("run", help="run the Monte Carlo study of a config and write summary, samples and report")
+def add_parser(
+    sub: argparse._SubParsersAction,
+    name: str = "run",
+    help: str = "run the Monte Carlo study of a config and write summary, samples and report",  # noqa: A002
+) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=help)
     p.add_argument("config", help="circuit config (TOML)")
     p.add_argument("--samples", type=int, help="Monte Carlo samples (overrides analysis.samples)")
     p.add_argument("--seed", type=int, help="random seed (overrides analysis.seed)")
@@ -63,13 +67,16 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
         help="time allowed to reach the scheduler and check its workers (default 10)",
     )
     p.set_defaults(execute=execute)
+    return p
 
 
 def execute(args: argparse.Namespace) -> int:
     started = getattr(args, "started", None) or time.perf_counter()  # set by main(): the whole command is timed
-    from mcmatch.config.schema import Analysis, load_config
+    from mcmatch.config.loading import load_config
+    from mcmatch.config.schema import Analysis
+    from mcmatch.results.atomic import write_run_folder
     from mcmatch.results.folder import check_run_target
-    from mcmatch.results.tables import write_json, write_run_folder, write_samples
+    from mcmatch.results.tables import write_json, write_samples
     from mcmatch.run.cluster import cluster_session, parse_address, worker_threads
     from mcmatch.studies.pipeline import RunOptions, run_study
 
@@ -130,6 +137,7 @@ def execute(args: argparse.Namespace) -> int:
     y = s["yield"]
     if not args.quiet:
         print(f"{s['title']}: {s['samples']} samples, {s['failed_solves']} failed solves")
+        print(f"  variation {config.analysis.variation}: {VARIATION_TEXT[config.analysis.variation]}")
         for name, m in s["measures"].items():
             print(
                 f"  {name:>16}: nominal {_num(m['nominal'], '.6g')}  mean {_num(m['mean'], '.6g')}  "
@@ -140,6 +148,14 @@ def execute(args: argparse.Namespace) -> int:
         shown = f"open {report}" if (target / "report.html").exists() else f"no report ('mcmatch report {out_dir}')"
         print(f"  written to {out_dir} in {time.perf_counter() - started:.1f} s; {shown}")
     return 0
+
+
+#: What each [analysis] variation mode draws per sample (die), for the console.
+VARIATION_TEXT = {
+    "local": "per-device mismatch only",
+    "global": "global process spread only (one draw per die)",
+    "both": "per-device mismatch plus global process spread (one draw per die)",
+}
 
 
 def _progress(bar: Any, samples: int) -> None:

@@ -1,27 +1,40 @@
-"""TOML config -> validated, frozen objects in SI units. The only module that reads input files.
+"""The config's pydantic models: validated, frozen objects in SI units (technology, netlist, measures, specs,
+analysis, placement, the resolved :class:`Config`).
 
-Validation is pydantic's; quantities go through :mod:`mcmatch.units`. Every problem becomes a
-:class:`~mcmatch.errors.ConfigError` naming the file, the key path (``circuit.mosfet[1].w``) and what was expected.
+Quantities go through :mod:`mcmatch.units`. Reading TOML and turning validation errors into
+:class:`~mcmatch.errors.ConfigError` live in :mod:`mcmatch.config.loading`; semantic checks across tables in
+:mod:`mcmatch.config.checks`.
 """
 
 from __future__ import annotations
 
-import difflib
 import hashlib
 import math
-import tomllib
 from functools import partial
-from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    ValidationInfo,
+    ValidatorFunctionWrapHandler,
+    WrapValidator,
+    field_validator,
+    model_validator,
+)
 
-from mcmatch.errors import ConfigError, quote
+from mcmatch.errors import quote
 from mcmatch.units import UnitError, parse_quantity
 
 GROUND = "gnd"
 
-MEASURE_UNITS = {"current": "A", "voltage": "V", "ratio": "1", "resistance": "ohm"}
+MEASURE_UNITS = {"current": "A", "voltage": "V", "ratio": "1", "resistance": "ohm", "port_resistance": "ohm"}
+MEASURE_KINDS = tuple(MEASURE_UNITS)
+#: Sample-table columns written beside the measures (and dvth_<device>, dbeta_<device>): no measure may take them.
+RESERVED_COLUMNS = ("sample", "converged", "iterations", "retried", "min_headroom")
 
 
 def _quantity(value: object, unit: str) -> float:
@@ -94,6 +107,21 @@ class Corner(Frozen):
     pmos: CornerShift = CornerShift()
 
 
+class PolarityStatistics(Frozen):
+    """Die-to-die (global) spread of one polarity: threshold sigma [V], relative k' sigma [1]."""
+
+    vth_sigma: Q("V") = Field(default=0.0, ge=0, le=1)
+    kprime_sigma: Q("1") = Field(default=0.0, ge=0, le=1)
+
+
+class Statistics(Frozen):
+    """Global process statistics: one draw per die (sample); nmos and pmos draws of one quantity correlated."""
+
+    nmos: PolarityStatistics = PolarityStatistics()
+    pmos: PolarityStatistics = PolarityStatistics()
+    polarity_correlation: Number = Field(default=0.0, ge=-1, le=1)
+
+
 class Technology(Frozen):
     name: Name
     description: str = ""
@@ -101,6 +129,7 @@ class Technology(Frozen):
     nmos: PolarityParameters | None = None
     pmos: PolarityParameters | None = None
     corners: dict[Name, Corner] = Field(default_factory=dict)
+    statistics: Statistics | None = None
 
     @field_validator("corners")
     @classmethod
@@ -150,11 +179,25 @@ class Mosfet(Frozen):
         return GROUND if self.type == "nmos" else self.source
 
 
+#: The value of a template's load current source until the run layer sizes it (:mod:`mcmatch.run.loads`).
+AUTO = "auto"
+#: Validation context under which a netlist may hold AUTO values and a load sizing: a template's expansion only.
+FROM_TEMPLATE = {"from_template": True}
+
+
+def _current_or_auto(value: object, handler: ValidatorFunctionWrapHandler, info: ValidationInfo) -> object:
+    """AUTO where a template put it (validated under FROM_TEMPLATE); otherwise a current [A] as usual."""
+    if value == AUTO and (info.context or {}).get("from_template"):
+        return AUTO
+    return handler(value)
+
+
 class CurrentSource(Frozen):
     name: Name
     from_: Name = Field(alias="from")
     to: Name
-    value: Q("A") = Field(ge=-100, le=100)
+    #: [A], or AUTO for a template's load current until it is sized (config loading never solves)
+    value: Annotated[Q("A"), WrapValidator(_current_or_auto)] = Field(ge=-100, le=100)
 
 
 class VoltageSource(Frozen):
@@ -177,6 +220,19 @@ class Netlist(Frozen):
     voltage_source: list[VoltageSource] = Field(default_factory=list)
     resistor: list[Resistor] = Field(default_factory=list)
     template: str | None = None  # the template this netlist was expanded from, if any
+    load_sizing: LoadSizing | None = None  # how a template's AUTO load currents are sized (set by templates only)
+
+    @field_validator("load_sizing", mode="before")
+    @classmethod
+    def _only_from_template(cls, value: object, info: ValidationInfo) -> object:
+        if value is not None and not (info.context or {}).get("from_template"):
+            raise ValueError('set only by a circuit template (output_load = "current"), never in a config')
+        return value
+
+    @property
+    def auto_sources(self) -> list[str]:
+        """Names of the current sources whose value is still AUTO."""
+        return [c.name for c in self.current_source if c.value == AUTO]
 
     @property
     def elements(self) -> list[Frozen]:
@@ -199,6 +255,22 @@ class Netlist(Frozen):
         raise KeyError(name)
 
 
+class LoadSizing(Frozen):
+    """How a template's load current sources are sized, when a condition is prepared (never while loading).
+
+    Load ``name`` of `loads` gets `sign` times the current that voltage source ``loads[name]`` delivers out of its
+    plus terminal in `held`: the template's own netlist with every output held at its output_voltage, solved once
+    with no mismatch at the nominal corner and the config's temperature.
+    """
+
+    held: Netlist
+    loads: dict[Name, Name]
+    sign: Literal[1, -1] = 1
+
+
+Netlist.model_rebuild()  # its load_sizing refers to LoadSizing, defined after it
+
+
 def terminals(element: Frozen) -> list[str]:
     """The nodes an element connects to."""
     if isinstance(element, Mosfet):
@@ -212,19 +284,20 @@ def terminals(element: Frozen) -> list[str]:
 
 # --------------------------------------------------------------------------------------------- measures, specs
 class Measure(Frozen):
-    """What is recorded per sample: exactly one of current, voltage, ratio, resistance."""
+    """What is recorded per sample: exactly one of current, voltage, ratio, resistance, port_resistance."""
 
     current: Name | None = None
     voltage: Name | None = None
     ratio: tuple[Name, Name] | None = None
     ideal: Number | None = None
     resistance: Name | None = None
+    port_resistance: Name | None = None  # a voltage source: dV/dI looking into the circuit [ohm]
 
     @model_validator(mode="after")
     def _exactly_one(self) -> Measure:
-        given = [k for k in ("current", "voltage", "ratio", "resistance") if getattr(self, k) is not None]
+        given = [k for k in MEASURE_KINDS if getattr(self, k) is not None]
         if len(given) != 1:
-            raise ValueError("a measure needs exactly one of 'current', 'voltage', 'ratio', 'resistance'")
+            raise ValueError(f"a measure needs exactly one of {', '.join(repr(k) for k in MEASURE_KINDS)}")
         if self.ideal is not None and self.ratio is None:
             raise ValueError("'ideal' belongs to a ratio measure")
         if self.ideal is not None and not 1e-9 <= abs(self.ideal) <= 1e9:
@@ -233,7 +306,7 @@ class Measure(Frozen):
 
     @property
     def kind(self) -> str:
-        for k in ("current", "voltage", "ratio", "resistance"):
+        for k in MEASURE_KINDS:
             if getattr(self, k) is not None:
                 return k
         raise AssertionError
@@ -312,16 +385,39 @@ class Bank(Frozen):
     samples: int | None = Field(default=None, ge=10, le=100_000_000)
 
 
+class SizingStudy(Frozen):
+    """[analysis.sizing]: W and L of device groups for the joint-yield target under a headroom limit (SI units)."""
+
+    groups: dict[Name, list[Name]] | None = None  # devices sharing one unit W and L; default: equal W and L
+    w: list[Q("m")] = Field(min_length=2, max_length=2)  # search range of the unit W [m]
+    l: list[Q("m")] = Field(min_length=2, max_length=2)  # noqa: E741 - search range of the unit L [m]
+    min_headroom: Q("V") = Field(default=0.05, ge=-10, le=10)  # Vds - Vdsat of every device at every corner [V]
+    max_area: Q("m^2") | None = Field(default=None, gt=0, le=1.0)  # total gate area allowed [m^2]
+    aspects: int = Field(default=7, ge=2, le=64)  # W/L grid points per group before refinement
+    samples: int = Field(default=20000, ge=100, le=100_000_000)  # confirming Monte Carlo samples
+    max_confirmations: int = Field(default=3, ge=1, le=20)
+
+    @model_validator(mode="after")
+    def _ranges(self) -> SizingStudy:
+        for key in ("w", "l"):
+            low, high = getattr(self, key)
+            if not 0 < low < high <= 0.1:
+                raise ValueError(f"'{key}' must be [minimum, maximum] with 0 < minimum < maximum <= 10 cm")
+        return self
+
+
 class Analysis(Frozen):
     samples: int = Field(default=10000, ge=1, le=10_000_000_000)
     seed: int = Field(default=1, ge=0, le=2**63 - 1)
     sampling: Literal["random", "sobol"] = "random"
+    variation: Literal["local", "global", "both"] = "local"  # mismatch, global process spread, or both
     keep_samples: int = Field(default=100_000, ge=0)
     target: Target = Target()
     corners: CornerStudy | None = None
     area: AreaStudy | None = None
     high_sigma: HighSigma | None = None
     bank: Bank | None = None
+    sizing: SizingStudy | None = None
     contributions: bool = True
 
 
@@ -420,11 +516,17 @@ class Config(Frozen):
         changes = {k: v for k, v in changes.items() if v is not None}
         if not changes:
             return self
+        from mcmatch.config.checks import check_spec_references  # they build on these models
+        from mcmatch.config.loading import validation_to_config_error
+
         try:
             analysis = Analysis.model_validate({**self.analysis.model_dump(by_alias=True), **changes})
         except ValidationError as exc:  # the overrides come from the command line (or an API caller)
             raise validation_to_config_error(exc, "command line", Analysis, prefix="analysis") from None
         check_spec_references(analysis, self.specs, self.path)
+        from mcmatch.config.variation import check_variation  # its own module: [statistics] against the studies
+
+        check_variation(analysis, self.technology, self.path)
         return self.model_copy(update={"analysis": analysis})
 
     def with_circuit(self, circuit: Netlist) -> Config:
@@ -432,404 +534,3 @@ class Config(Frozen):
 
     def with_technology(self, technology: Technology) -> Config:
         return self.model_copy(update={"technology": technology})
-
-
-# --------------------------------------------------------------------------------------------- errors
-def key_path(loc: tuple[Any, ...], prefix: str = "") -> str:
-    """('circuit', 'mosfet', 1, 'w') -> 'circuit.mosfet[1].w'."""
-    out = prefix
-    for part in loc:
-        if isinstance(part, int):
-            out += f"[{part}]"
-        elif str(part).startswith("function-") or str(part) in ("literal['square-law','ekv']",):
-            continue
-        else:
-            out = f"{out}.{part}" if out else str(part)
-    return out
-
-
-def _known_fields(model: type[BaseModel], loc: tuple[Any, ...]) -> list[str]:
-    """Field names (by alias) of the model at `loc`, for spelling suggestions."""
-    current: Any = model
-    for part in loc[:-1]:
-        if isinstance(part, int) or current is None:
-            continue
-        fields = getattr(current, "model_fields", None)
-        if not fields:
-            return []
-        match = next((f for n, f in fields.items() if (f.alias or n) == part), None)
-        if match is None:
-            return []
-        annotation = match.annotation
-        current = _model_in(annotation)
-    fields = getattr(current, "model_fields", None) or {}
-    return [f.alias or n for n, f in fields.items()]
-
-
-def _model_in(annotation: Any) -> Any:
-    import typing
-
-    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-        return annotation
-    for arg in typing.get_args(annotation):
-        found = _model_in(arg)
-        if found is not None:
-            return found
-    return None
-
-
-def validation_to_config_error(
-    exc: ValidationError, file: str, model: type[BaseModel], prefix: str = ""
-) -> ConfigError:
-    """The first problem of a pydantic ValidationError as a ConfigError with file, key path and expectation."""
-    errors = exc.errors(include_url=False)
-    # a misspelt key shows up as one unknown key plus one missing key: report the unknown one, naming the missing
-    extra = [e for e in errors if e.get("type") == "extra_forbidden"]
-    err = extra[0] if extra else errors[0]
-    parent = tuple(err["loc"][:-1])
-    missing = [str(e["loc"][-1]) for e in errors if e.get("type") == "missing" and tuple(e["loc"][:-1]) == parent]
-    loc = tuple(err.get("loc", ()))
-    loc = tuple(p for p in loc if not (isinstance(p, str) and (p.startswith("function-") or p in _UNION_TAGS)))
-    path = key_path(loc, prefix)
-    kind = err.get("type", "")
-    msg = str(err.get("msg", "invalid value"))
-    if msg.startswith("Value error, "):
-        msg = msg[len("Value error, ") :]
-    if kind == "extra_forbidden":
-        known = _known_fields(model, loc)
-        guess = difflib.get_close_matches(str(loc[-1]), known, n=1) if loc else []
-        if not guess and missing:
-            guess = missing[:1]
-        msg = "unknown key" + (f"; did you mean '{guess[0]}'?" if guess else "")
-        if known:
-            msg += f" (expected one of: {', '.join(sorted(known))})"
-    elif kind == "missing":
-        msg = "required key is missing"
-    else:
-        value = err.get("input")
-        if kind not in ("value_error",) and not isinstance(value, (dict, list)):
-            msg = f"{msg}; got {quote(value)}"
-    return ConfigError(msg, file=file, key=path or None)
-
-
-_UNION_TAGS = {"str", "dict[str,any]", "float", "int", "none", "list[...]", "tuple[str, str]"}
-
-
-# --------------------------------------------------------------------------------------------- loading
-def read_toml(path: Path) -> tuple[dict[str, Any], str]:
-    """Parse a TOML file; ConfigError naming the file, line and column on failure."""
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ConfigError("file not found", file=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"cannot read file: {exc}", file=str(path)) from None
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"not valid TOML: {exc}", file=str(path)) from None
-    except RecursionError:  # tomllib recurses once per level of nested arrays and inline tables
-        raise ConfigError(_TOO_DEEP, file=str(path)) from None
-    except ValueError as exc:  # an integer beyond Python's 4300-digit conversion limit
-        raise ConfigError(f"not valid TOML: {exc}", file=str(path)) from None
-    check_nesting(raw, str(path))
-    return raw, text
-
-
-#: Levels of tables and arrays inside each other a document may have; a real config needs about five.
-MAX_NESTING = 32
-_TOO_DEEP = f"arrays or tables nested more than {MAX_NESTING} levels deep; a config needs only a few"
-
-
-def check_nesting(data: object, file: str, limit: int = MAX_NESTING) -> None:
-    """ConfigError naming the key path where `data` nests tables/arrays deeper than `limit` (walked without
-    recursion, so no depth can exhaust the stack)."""
-    stack: list[tuple[object, tuple[Any, ...]]] = [(data, ())]
-    while stack:
-        value, loc = stack.pop()
-        if len(loc) > limit:
-            raise ConfigError(_TOO_DEEP, file=file, key=key_path(loc[: limit + 1]))
-        if isinstance(value, dict):
-            stack.extend((v, (*loc, k)) for k, v in value.items())
-        elif isinstance(value, list):
-            stack.extend((v, (*loc, i)) for i, v in enumerate(value))
-
-
-def load_technology(data: str | dict[str, Any], config_path: Path) -> tuple[Technology, str | None, str]:
-    """Resolve a technology: a path relative to the config file, or an inline table."""
-    if isinstance(data, str):
-        tech_path = (config_path.parent / data).resolve()
-        if not tech_path.is_file():
-            raise ConfigError(
-                f"technology file '{data}' not found (looked at {tech_path})", file=str(config_path), key="technology"
-            )
-        raw, text = read_toml(tech_path)
-        try:
-            return Technology.model_validate(raw), str(tech_path), text
-        except ValidationError as exc:
-            raise validation_to_config_error(exc, str(tech_path), Technology) from None
-    try:
-        return Technology.model_validate(data), None, ""
-    except ValidationError as exc:
-        raise validation_to_config_error(exc, str(config_path), Technology, prefix="technology") from None
-
-
-def load_config(path: str | Path) -> Config:
-    """Read, validate and resolve a circuit config file."""
-    path = Path(path)
-    raw, text = read_toml(path)
-    return config_from_dict(raw, path, text)
-
-
-def config_from_dict(raw: dict[str, Any], path: Path, text: str = "") -> Config:
-    """Validate a parsed config document; `path` locates relative files and names the file in errors."""
-    file = str(path)
-    if not isinstance(raw, dict):
-        raise ConfigError("expected a TOML table at the top level", file=file)
-    check_nesting(raw, file)
-    try:
-        parsed = RawConfig.model_validate(raw)
-    except ValidationError as exc:
-        raise validation_to_config_error(exc, file, RawConfig) from None
-    technology, tech_path, tech_text = load_technology(parsed.technology, path)
-    circuit_raw = dict(parsed.circuit)
-    measures = dict(parsed.measures)
-    if "template" in circuit_raw:
-        from mcmatch.config.templates import expand_template  # templates build on config's types
-
-        circuit_raw, default_measures = expand_template(circuit_raw, file, technology, parsed.temperature)
-        measures = {**default_measures, **measures}
-    try:
-        netlist = Netlist.model_validate(circuit_raw)
-    except ValidationError as exc:
-        raise validation_to_config_error(exc, file, Netlist, prefix="circuit") from None
-    check_netlist(netlist, technology, file)
-    if not measures:
-        measures = {f"i_{m.name}": Measure(current=m.name) for m in netlist.mosfet}
-    check_measures(measures, netlist, file)
-    specs = parse_specs(parsed.specs, measures, file)
-    check_analysis(parsed.analysis, netlist, technology, file)
-    check_spec_references(parsed.analysis, specs, file)
-    check_placement(parsed.placement, netlist, file)
-    temperature = parsed.temperature if parsed.temperature is not None else technology.nominal_temperature
-    return Config(
-        title=parsed.title or path.stem,
-        path=file,
-        technology=technology,
-        technology_path=tech_path,
-        temperature=temperature,
-        circuit=netlist,
-        measures=measures,
-        specs=specs,
-        analysis=parsed.analysis,
-        placement=parsed.placement,
-        notes=parsed.notes,
-        text=text,
-        technology_text=tech_text,
-    )
-
-
-# --------------------------------------------------------------------------------------------- semantic checks
-def check_netlist(netlist: Netlist, technology: Technology, file: str) -> None:
-    """Names unique, models present, every node DC-connected to gnd, no loop of voltage sources."""
-    if not netlist.mosfet:
-        raise ConfigError("the circuit has no MOSFET; at least one is needed", file=file, key="circuit.mosfet")
-    seen: dict[str, str] = {}
-    for kind in ("mosfet", "current_source", "voltage_source", "resistor"):
-        for i, element in enumerate(getattr(netlist, kind)):
-            path = f"circuit.{kind}[{i}].name"
-            if element.name in seen:
-                raise ConfigError(
-                    f"duplicate name '{element.name}' (already used at {seen[element.name]}); names must be unique",
-                    file=file,
-                    key=path,
-                )
-            if element.name == GROUND:
-                raise ConfigError("'gnd' is the ground node, not a device name", file=file, key=path)
-            seen[element.name] = path
-    nodes = set(netlist.nodes)
-    clash = nodes & set(seen)
-    if clash:
-        name = sorted(clash)[0]
-        raise ConfigError(f"'{name}' is used both as a node and as a device name", file=file, key=seen[name])
-    for i, m in enumerate(netlist.mosfet):
-        if getattr(technology, m.type) is None:
-            raise ConfigError(
-                f"the technology has no [{m.type}] table but this device is {m.type}",
-                file=file,
-                key=f"circuit.mosfet[{i}].type",
-            )
-        if m.drain == m.source:
-            raise ConfigError("drain and source are the same node", file=file, key=f"circuit.mosfet[{i}].source")
-    for i, r in enumerate(netlist.resistor):
-        if r.a == r.b:
-            raise ConfigError("both ends on the same node", file=file, key=f"circuit.resistor[{i}].b")
-    for i, c in enumerate(netlist.current_source):
-        if c.from_ == c.to:
-            raise ConfigError("both ends on the same node", file=file, key=f"circuit.current_source[{i}].to")
-
-    # loops of voltage sources, by union-find over their terminals
-    parent: dict[str, str] = {}
-
-    def find(x: str) -> str:
-        parent.setdefault(x, x)
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    for i, v in enumerate(netlist.voltage_source):
-        a, b = find(v.plus), find(v.minus)
-        if a == b:
-            raise ConfigError(
-                "this voltage source closes a loop of voltage sources (its two nodes are already fixed against each "
-                "other); remove it or put a resistor in the loop",
-                file=file,
-                key=f"circuit.voltage_source[{i}]",
-            )
-        parent[a] = b
-
-    # DC path to gnd: through resistors, voltage sources and MOSFET channels (not gates, not current sources)
-    adjacency: dict[str, set[str]] = {n: set() for n in [*nodes, GROUND]}
-
-    def link(a: str, b: str) -> None:
-        adjacency[a].add(b)
-        adjacency[b].add(a)
-
-    for r in netlist.resistor:
-        link(r.a, r.b)
-    for v in netlist.voltage_source:
-        link(v.plus, v.minus)
-    for m in netlist.mosfet:
-        link(m.drain, m.source)
-    reached = {GROUND}
-    stack = [GROUND]
-    while stack:
-        for nxt in adjacency[stack.pop()]:
-            if nxt not in reached:
-                reached.add(nxt)
-                stack.append(nxt)
-    for node in netlist.nodes:
-        if node not in reached:
-            where = _first_use(netlist, node)
-            raise ConfigError(
-                f"node '{node}' has no DC path to gnd (only gates or current sources reach it)", file=file, key=where
-            )
-
-
-_TERMINAL_KEYS = {
-    "mosfet": ("drain", "gate", "source", "bulk"),
-    "current_source": ("from", "to"),
-    "voltage_source": ("plus", "minus"),
-    "resistor": ("a", "b"),
-}
-
-
-def _first_use(netlist: Netlist, node: str) -> str:
-    for kind in ("mosfet", "current_source", "voltage_source", "resistor"):
-        for i, element in enumerate(getattr(netlist, kind)):
-            for key, name in zip(_TERMINAL_KEYS[kind], terminals(element), strict=True):
-                if name == node:
-                    return f"circuit.{kind}[{i}].{key}"
-    return "circuit"
-
-
-def check_measures(measures: dict[str, Measure], netlist: Netlist, file: str) -> None:
-    names = {e.name for e in netlist.elements}
-    nodes = set(netlist.nodes)
-    for key, measure in measures.items():
-        path = f"measures.{key}"
-        if measure.current is not None and measure.current not in names:
-            raise ConfigError(_unknown("device", measure.current, names), file=file, key=f"{path}.current")
-        if measure.ratio is not None:
-            for i, name in enumerate(measure.ratio):
-                if name not in names:
-                    raise ConfigError(_unknown("device", name, names), file=file, key=f"{path}.ratio[{i}]")
-        if measure.voltage is not None and measure.voltage not in nodes | {GROUND}:
-            raise ConfigError(_unknown("node", measure.voltage, nodes), file=file, key=f"{path}.voltage")
-        if measure.resistance is not None and measure.resistance not in nodes:
-            raise ConfigError(_unknown("node", measure.resistance, nodes), file=file, key=f"{path}.resistance")
-
-
-def _unknown(kind: str, name: str, known: set[str]) -> str:
-    guess = difflib.get_close_matches(name, sorted(known), n=1)
-    hint = f"; did you mean '{guess[0]}'?" if guess else ""
-    return f"unknown {kind} '{name}'{hint} (expected one of: {', '.join(sorted(known))})"
-
-
-def parse_specs(specs: dict[str, Spec], measures: dict[str, Measure], file: str) -> dict[str, Limits]:
-    out: dict[str, Limits] = {}
-    for key, spec in specs.items():
-        if key not in measures:
-            raise ConfigError(_unknown("measure", key, set(measures)), file=file, key=f"specs.{key}")
-        unit = measures[key].unit
-        bounds: dict[str, float | None] = {}
-        for side in ("min", "max"):
-            value = getattr(spec, side)
-            if value is None:
-                bounds[side] = None
-                continue
-            try:
-                bounds[side] = parse_quantity(value, unit)
-            except UnitError as exc:
-                raise ConfigError(str(exc), file=file, key=f"specs.{key}.{side}") from None
-        if bounds["min"] is not None and bounds["max"] is not None and bounds["min"] > bounds["max"]:
-            raise ConfigError("min is above max", file=file, key=f"specs.{key}")
-        out[key] = Limits(**bounds)
-    return out
-
-
-def check_analysis(analysis: Analysis, netlist: Netlist, technology: Technology, file: str) -> None:
-    if analysis.corners is not None:
-        for i, name in enumerate(analysis.corners.process or []):
-            try:
-                technology.corner(name)
-            except KeyError:
-                known = set(technology.corner_names)
-                raise ConfigError(
-                    _unknown("corner", name, known), file=file, key=f"analysis.corners.process[{i}]"
-                ) from None
-        if analysis.corners.supply is not None or analysis.corners.supply_scale is not None:
-            sources = {v.name for v in netlist.voltage_source}
-            if analysis.corners.supply_source not in sources:
-                raise ConfigError(
-                    _unknown("voltage source", analysis.corners.supply_source, sources),
-                    file=file,
-                    key="analysis.corners.supply_source",
-                )
-    if analysis.area is not None:
-        mosfets = {m.name for m in netlist.mosfet}
-        for i, name in enumerate(analysis.area.devices):
-            if name not in mosfets:
-                raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=f"analysis.area.devices[{i}]")
-
-
-def check_placement(placement: Placement | None, netlist: Netlist, file: str) -> None:
-    """Placement letters name MOSFETs of the netlist."""
-    if placement is None:
-        return
-    mosfets = {m.name for m in netlist.mosfet}
-    for letter, name in placement.devices.items():
-        if name not in mosfets:
-            raise ConfigError(_unknown("MOSFET", name, mosfets), file=file, key=f"placement.devices.{letter}")
-
-
-def check_spec_references(analysis: Analysis, specs: dict[str, Limits], file: str) -> None:
-    """Names in [analysis.high_sigma] and [analysis.bank] must be spec'd measures."""
-    for table in ("high_sigma", "bank"):
-        study = getattr(analysis, table, None)
-        if study is None:
-            continue
-        if table == "bank" and not specs:
-            raise ConfigError(
-                "a bank yield needs specs on its channels; add a [specs] entry per channel measure",
-                file=file,
-                key="analysis.bank",
-            )
-        for i, name in enumerate(getattr(study, "measures", None) or []):
-            if name not in specs:
-                raise ConfigError(
-                    f"'{name}' is not a spec'd measure (expected one of: {', '.join(specs) or 'none'})",
-                    file=file,
-                    key=f"analysis.{table}.measures[{i}]",
-                )

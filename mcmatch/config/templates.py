@@ -7,13 +7,15 @@ and nothing else. Ratios are built from unit devices: a ratio of 3/2 gives a ref
 
 Naming, shared by every template: reference device ``MREF`` and its gate node ``nb``; outputs ``MOUT1`` ... driving
 nodes ``out1`` ...; reference current ``IREF``; supply ``VDD`` on node ``vdd``; output voltage sources ``VOUT1`` ...
-(or load current sources ``ILOAD1`` ... with ``output_load = "current"``). A pmos template is the mirror image: its
+(or load current sources ``ILOAD1`` ... with ``output_load = "current"``, sized by the run layer unless
+``load_current`` is given: expansion never solves). A pmos template is the mirror image: its
 sources sit at ``vdd`` and its reference current flows out of ``nb`` to ``gnd``.
 
-Default measures: ``i_out<k>`` (output current [A]), ``err<k>`` (ratio error against the ideal ratio [1]), ``v_nb``
-and ``r_nb`` (voltage [V] and small-signal resistance [ohm] of node ``nb``). With a current load the output current
-is forced, so ``v_out<k>`` and ``r_out<k>`` (output voltage and output resistance) replace ``i_out<k>`` and
-``err<k>``. Measures given in the config override these by name.
+Default measures: ``i_out<k>`` (output current [A]), ``err<k>`` (ratio error against the ideal ratio [1]),
+``r_out<k>`` (output resistance [ohm]: the port resistance seen by ``VOUT<k>``), ``v_nb`` and ``r_nb`` (voltage [V]
+and small-signal resistance [ohm] of node ``nb``). With a current load the output current is forced, so ``v_out<k>``
+(output voltage) replaces ``i_out<k>`` and ``err<k>``, and ``r_out<k>`` is the node resistance of ``out<k>``.
+Measures given in the config override these by name.
 """
 
 from __future__ import annotations
@@ -27,8 +29,10 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError
 
-from mcmatch.config.schema import GROUND, Measure, Netlist, Q, Technology, validation_to_config_error
-from mcmatch.errors import ConfigError, SolveError
+from mcmatch.config.loading import validation_to_config_error
+from mcmatch.config.schema import AUTO, GROUND, LoadSizing, Measure, Netlist, Q
+from mcmatch.errors import ConfigError
+from mcmatch.units import format_quantity
 
 #: Largest number of unit devices in the reference that a ratio may need (ratio 1/3 needs 3).
 MAX_REFERENCE_UNITS = 100
@@ -393,18 +397,13 @@ def get_template(name: object, file: str | None = None) -> Template:
     )
 
 
-def expand_template(
-    circuit_raw: dict[str, Any],
-    file: str,
-    technology: Technology | None = None,
-    temperature: float | None = None,
-) -> tuple[dict[str, Any], dict[str, Measure]]:
+def expand_template(circuit_raw: dict[str, Any], file: str) -> tuple[dict[str, Any], dict[str, Measure]]:
     """Expand ``[circuit] template = ...`` into netlist element lists (SI floats) and the default measures.
 
-    Element lists given beside the template (``[[circuit.resistor]]`` ...) are appended to the expansion. With
-    ``output_load = "current"`` and no ``load_current``, the load is the nominal output current found by solving the
-    circuit once with the outputs held at ``output_voltage``; that needs `technology` (and `temperature` [K], default
-    the technology's nominal); without it the ideal ratio times the reference current is used.
+    Pure: nothing is solved. Element lists given beside the template (``[[circuit.resistor]]`` ...) are appended to
+    the expansion. With ``output_load = "current"`` and no ``load_current``, each load source ILOAD<k> has the value
+    AUTO and the netlist a ``load_sizing`` (the template's netlist with its outputs held at ``output_voltage``); the
+    run layer sizes the loads from it when a condition is prepared (:func:`mcmatch.run.loads.resolve_loads`).
     Raises ConfigError naming ``circuit.<parameter>`` and what was expected.
     """
     raw = dict(circuit_raw)
@@ -419,10 +418,10 @@ def expand_template(
         template.build(builder, params)
     except ParameterError as exc:
         raise ConfigError(str(exc), file=file, key=f"circuit.{exc.key}") from None
-    netlist = {kind: items for kind, items in builder.elements.items() if items}
+    netlist: dict[str, Any] = {kind: items for kind, items in builder.elements.items() if items}
     measures = _default_measures(template, params)
     if isinstance(params, OutputParameters) and params.output_load == "current":
-        netlist = _current_loads(netlist, params, technology, temperature, file)
+        netlist = _current_loads(netlist, params, file)
     for kind, items in extra.items():
         if not isinstance(items, list):
             raise ConfigError(f"expected a list of [[circuit.{kind}]] tables", file=file, key=f"circuit.{kind}")
@@ -440,6 +439,7 @@ def _default_measures(template: Template, params: TemplateParameters) -> dict[st
             if params.output_load == "voltage":
                 measures[f"i_out{k}"] = Measure(current=f"MOUT{k}")
                 measures[f"err{k}"] = Measure(ratio=(f"MOUT{k}", "IREF"), ideal=float(ratio))
+                measures[f"r_out{k}"] = Measure(port_resistance=f"VOUT{k}")
             else:
                 measures[f"v_out{k}"] = Measure(voltage=f"out{k}")
                 measures[f"r_out{k}"] = Measure(resistance=f"out{k}")
@@ -448,61 +448,34 @@ def _default_measures(template: Template, params: TemplateParameters) -> dict[st
     return measures
 
 
-def _current_loads(
-    netlist: dict[str, Any],
-    params: OutputParameters,
-    technology: Technology | None,
-    temperature: float | None,
-    file: str,
-) -> dict[str, Any]:
-    """Replace the output voltage sources VOUT<k> by current sources ILOAD<k> of the nominal output current."""
+def _current_loads(netlist: dict[str, Any], params: OutputParameters, file: str) -> dict[str, Any]:
+    """Replace the output voltage sources VOUT<k> by current sources ILOAD<k>: of load_current if given, else AUTO
+    with a load sizing that holds the outputs where VOUT<k> did."""
     outputs = [v for v in netlist["voltage_source"] if v["name"].startswith("VOUT")]
+    sizing = None
     if params.load_current is not None:
-        currents = [params.load_current] * len(outputs)
-    elif technology is None:
-        currents = [float(r) * params.reference_current for r in params.output_ratios]
+        currents: list[float | str] = [params.load_current] * len(outputs)
     else:
-        currents = _nominal_output_currents(netlist, params, technology, temperature, file)
+        currents = [AUTO] * len(outputs)
+        try:
+            held = Netlist.model_validate(netlist)
+        except ValidationError as exc:
+            raise validation_to_config_error(exc, file, Netlist, prefix="circuit") from None
+        loads = {f"ILOAD{k}": v["name"] for k, v in enumerate(outputs, start=1)}
+        sizing = LoadSizing(held=held, loads=loads, sign=1 if params.type == "nmos" else -1)
     sources = [v for v in netlist["voltage_source"] if not v["name"].startswith("VOUT")]
-    loads = []
+    loads_out = []
     for k, (v, current) in enumerate(zip(outputs, currents, strict=True), start=1):
         ends = (SUPPLY_NODE, v["plus"]) if params.type == "nmos" else (v["plus"], GROUND)
-        loads.append({"name": f"ILOAD{k}", "from": ends[0], "to": ends[1], "value": current})
-    return {**netlist, "voltage_source": sources, "current_source": [*netlist.get("current_source", []), *loads]}
-
-
-def _nominal_output_currents(
-    netlist: dict[str, Any], params: OutputParameters, technology: Technology, temperature: float | None, file: str
-) -> list[float]:
-    """Currents [A] the outputs carry when held at their output voltages, no mismatch, nominal corner."""
-    from mcmatch.model.circuit import compile_circuit  # solving needs the layers below; imported only here
-    from mcmatch.model.technology import device_parameters
-    from mcmatch.run.engine import nominal_point
-
-    temperature = technology.nominal_temperature if temperature is None else temperature
-    held = Netlist.model_validate(netlist)
-    circuit = compile_circuit(held, device_parameters(held, technology, temperature))
-    try:
-        x = nominal_point(circuit)
-    except SolveError as exc:
-        raise SolveError(
-            f"{file}: sizing the load current sources: the circuit with its outputs held at output_voltage has no "
-            f"operating point ({exc.message}); give load_current"
-        ) from None
-    polarity = 1.0 if params.type == "nmos" else -1.0
-    names = [v.name for v in held.voltage_source]
-    currents = []
-    for k in range(1, len(params.output_ratios) + 1):
-        current = polarity * float(x[circuit.n_nodes + names.index(f"VOUT{k}")])
-        if not current > 0:
-            raise ConfigError(
-                f"output {k} carries no current at its output_voltage ({current:.3g} A); the load current cannot be "
-                "sized from it: give load_current",
-                file=file,
-                key="circuit.load_current",
-            )
-        currents.append(current)
-    return currents
+        loads_out.append({"name": f"ILOAD{k}", "from": ends[0], "to": ends[1], "value": current})
+    expanded = {
+        **netlist,
+        "voltage_source": sources,
+        "current_source": [*netlist.get("current_source", []), *loads_out],
+    }
+    if sizing is not None:
+        expanded["load_sizing"] = sizing
+    return expanded
 
 
 # --------------------------------------------------------------------------------------------- describing
@@ -528,22 +501,6 @@ def parameter_rows(name: str) -> list[tuple[str, str, str]]:
         default = info.default
         rows.append((field_name, toml_value(default) if default is not None else "", info.description or ""))
     return rows
-
-
-_PREFIXES = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"), (1e-12, "p")]
-
-
-def format_quantity(value: float, unit: str, digits: int = 6) -> str:
-    """An SI value as a quantity string with an engineering prefix: 4e-06, "m" -> "4 um" (parses back exactly)."""
-    if value == 0 or not math.isfinite(value):
-        return f"{value:g} {unit}"
-    magnitude = abs(value)
-    if unit == "V" and 0.1 <= magnitude < 1000:  # node voltages read best in volts
-        return f"{float(f'{value:.{digits}g}'):.{digits}g} V"
-    scale, prefix = next(((s, p) for s, p in _PREFIXES if magnitude >= s * 0.9999999), _PREFIXES[-1])
-    number = float(f"{value / scale:.{digits}g}")
-    text = f"{number:.{digits}g}"
-    return f"{text} {prefix}{unit}"
 
 
 def toml_value(value: object) -> str:
@@ -575,7 +532,7 @@ def netlist_toml(netlist: Netlist) -> str:
             for key, value in element.model_dump(by_alias=True, exclude_none=True).items():
                 if kind == "mosfet" and key in ("w", "l"):
                     value = format_quantity(value, "m")
-                elif key == "value":
+                elif key == "value" and value != AUTO:  # AUTO: a load not yet sized (see run.loads)
                     value = format_quantity(value, value_units[kind])
                 lines.append(f"{key} = {toml_value(value)}")
             lines.append("")

@@ -12,8 +12,8 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from mcmatch.config.schema import GROUND, Measure, Netlist
-from mcmatch.model.devices import ekv, square_law
+from mcmatch.config.schema import GROUND, Netlist
+from mcmatch.model.devices import DeviceState, mosfet_state
 from mcmatch.model.technology import EKV, DeviceParameters
 
 #: Conductance across every MOSFET channel [S]; keeps a cut-off device's nodes defined. Part of the model, so the
@@ -125,9 +125,10 @@ def mosfet_currents(
     vg = pol * xe[:, circuit.gate[k]]
     vs = pol * xe[:, circuit.source[k]]
     vb = pol * xe[:, circuit.bulk[k]]
-    if p.model[k] == EKV:
-        return ekv(vd, vg, vs, vb, vth[:, k], beta[:, k], p.lam[k], p.slope[k], p.ut)
-    return square_law(vd, vg, vs, vb, vth[:, k], beta[:, k], p.lam[k], p.gamma[k], p.phi[k])
+    state = mosfet_state(
+        p.model[k], vd, vg, vs, vb, vth[:, k], beta[:, k], p.lam[k], p.gamma[k], p.phi[k], p.slope[k], p.ut
+    )
+    return state.currents()
 
 
 def residual_jacobian(
@@ -186,60 +187,6 @@ def voltage_mask(circuit: Circuit) -> np.ndarray:
     mask = np.zeros(circuit.n_unknowns, dtype=bool)
     mask[: circuit.n_nodes] = True
     return mask
-
-
-def element_current(circuit: Circuit, xe: np.ndarray, vth: np.ndarray, beta: np.ndarray, name: str) -> np.ndarray:
-    """Current of a named element [A], signed as DESIGN.md section 3 states."""
-    if name in circuit.mosfet_names:
-        return mosfet_currents(circuit, xe, vth, beta, circuit.mosfet_names.index(name))[0]
-    if name in circuit.isource_names:
-        value = circuit.isource_value[circuit.isource_names.index(name)]
-        return np.full(xe.shape[0], value)
-    if name in circuit.vsource_names:
-        return xe[:, circuit.n_nodes + circuit.vsource_names.index(name)].copy()
-    k = circuit.resistor_names.index(name)
-    return circuit.resistor_conductance[k] * (xe[:, circuit.resistor_a[k]] - xe[:, circuit.resistor_b[k]])
-
-
-def node_resistance(jac: np.ndarray, node: int) -> np.ndarray:
-    """Small-signal resistance from node `node` to gnd [ohm], from the MNA Jacobian (S, n, n) at the solution.
-
-    Voltage sources are shorted (their constraint rows stay), current sources open (constant): a test current of
-    1 A injected at the node gives dx = J^-1 e_node, and the resistance is its entry at the node.
-    """
-    n_samples, n, _ = jac.shape
-    rhs = np.zeros((n_samples, n, 1))
-    rhs[:, node, 0] = 1.0
-    return np.linalg.solve(jac, rhs)[:, node, 0]
-
-
-def evaluate_measures(
-    circuit: Circuit,
-    measures: dict[str, Measure],
-    x: np.ndarray,
-    vth: np.ndarray,
-    beta: np.ndarray,
-    jac: np.ndarray | None = None,
-) -> dict[str, np.ndarray]:
-    """Every measure at solved unknowns x (S, n): currents [A], voltages [V], ratio errors [1], resistances [ohm]."""
-    xe = extend(x)
-    out: dict[str, np.ndarray] = {}
-    for key, measure in measures.items():
-        if measure.current is not None:
-            out[key] = element_current(circuit, xe, vth, beta, measure.current)
-        elif measure.voltage is not None:
-            out[key] = xe[:, circuit.node_index(measure.voltage)].copy()
-        elif measure.ratio is not None:
-            num = element_current(circuit, xe, vth, beta, measure.ratio[0])
-            den = element_current(circuit, xe, vth, beta, measure.ratio[1])
-            ideal = 1.0 if measure.ideal is None else measure.ideal
-            with np.errstate(divide="ignore", invalid="ignore"):
-                out[key] = num / den / ideal - 1.0
-        else:
-            if jac is None:
-                _, jac = residual_jacobian(circuit, x, vth, beta)
-            out[key] = node_resistance(jac, circuit.node_index(measure.resistance))
-    return out
 
 
 # --------------------------------------------------------------------------------------------------------------------
@@ -507,112 +454,11 @@ def reduce_unknowns(reduced: ReducedCircuit, x: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(np.asarray(x)[:, list(reduced.unknowns)].T)
 
 
-@dataclass
-class DeviceState:
-    """One MOSFET at one point, mirrored to the n-channel sense: current i [A], d i / d(vd, vg, vs, vb) [S]
-    (None where a derivative is structurally zero) and vdiff = vd - vs [V]."""
-
-    i: np.ndarray
-    di_dvd: np.ndarray
-    di_dvg: np.ndarray
-    di_dvs: np.ndarray
-    di_dvb: np.ndarray | None
-    vdiff: np.ndarray | float
-
-
 def _terminal(u: np.ndarray, terminal: tuple[int, float], polarity: float) -> np.ndarray | float:
     r, value = terminal
     if r < 0:
         return polarity * value
     return u[r] if polarity > 0 else -u[r]
-
-
-def _zero(value: object) -> bool:
-    return isinstance(value, float) and value == 0.0
-
-
-def _minimum(value: np.ndarray | float) -> float:
-    return float(np.min(value)) if isinstance(value, np.ndarray) else float(value)
-
-
-def square_law_state(
-    vd: np.ndarray | float,
-    vg: np.ndarray | float,
-    vs: np.ndarray | float,
-    vb: np.ndarray | float,
-    vth0: np.ndarray,
-    beta: np.ndarray,
-    lam: float,
-    gamma: float,
-    phi: float,
-    need: str = "dgsb",
-) -> DeviceState:
-    """The square law of :func:`mcmatch.model.devices.square_law` (same equations), arranged for speed.
-
-    Voltages [V] in the n-channel sense (arrays or floats); vth0 [V], beta [A/V^2] per sample; lam [1/V],
-    gamma [V^0.5], phi [V] scalars. `need` names the derivatives wanted (others may be None). The saturation
-    formulas are always computed; triode, cut-off, reverse conduction and the body-effect clamp are computed and
-    selected only when some sample of the batch needs them, by expressions that leave the other samples' bits
-    unchanged (x - 0.0 and x + 0.0 are skipped for the same reason: they return x exactly).
-    """
-    vdiff = vd if _zero(vs) else vd - vs
-    forward = _minimum(vdiff) >= 0.0
-    if forward:
-        vlow, vds = vs, vdiff
-    else:
-        vlow, vds = np.minimum(vd, vs), np.abs(vdiff)
-        need = "dgsb"
-    dvt = None
-    vt = vth0
-    if gamma != 0.0:
-        floor = PHI_CLAMP * phi
-        vsb = vlow if _zero(vb) else vlow - vb
-        arg = phi + vsb
-        clamped = _minimum(arg) < floor
-        root = np.sqrt(np.maximum(arg, floor) if clamped else arg)
-        body = gamma * (root - np.sqrt(phi))
-        if not _zero(body):
-            vt = vth0 + body
-        if "b" in need or "s" in need:
-            dvt = (0.5 * gamma) / root
-            if clamped:
-                dvt = np.where(arg < floor, 0.0, dvt)
-    vov = (vg if _zero(vlow) else vg - vlow) - vt
-    clm = 1.0 + lam * vds
-    bv = beta * vov
-    gm = bv * clm
-    half = (0.5 * bv) * vov
-    i = half * clm
-    gds = half * lam
-    if not (_minimum(vov) > 0.0 and _minimum(vds - vov) >= 0.0):
-        on = vov > 0.0
-        sat = vds >= vov
-        core = vov * vds - 0.5 * vds * vds
-        i_t = (beta * core) * clm
-        gm_t = (beta * vds) * clm
-        gds_t = beta * ((vov - vds) * clm + core * lam)
-        i = np.where(on, np.where(sat, i, i_t), 0.0)
-        gm = np.where(on, np.where(sat, gm, gm_t), 0.0)
-        gds = np.where(on, np.where(sat, gds, gds_t), 0.0)
-    gmb = None if dvt is None else gm * dvt
-    d_low = None
-    if "s" in need:
-        d_low = -(gds + gm) if gmb is None else -((gds + gm) + gmb)
-    if forward:
-        return DeviceState(i, gds, gm, d_low, gmb, vdiff)
-    rev = vdiff < 0.0
-    return DeviceState(
-        np.where(rev, -i, i),
-        np.where(rev, -d_low, gds),
-        np.where(rev, -gm, gm),
-        np.where(rev, -gds, d_low),
-        None if gmb is None else np.where(rev, -gmb, gmb),
-        vdiff,
-    )
-
-
-#: Same clamp as mcmatch.model.devices: phi + vsb is floored at this fraction of phi.
-PHI_CLAMP = 0.1
 
 
 def device_state(
@@ -628,10 +474,21 @@ def device_state(
     p = reduced.circuit.params
     k, pol = stamp.index, stamp.polarity
     vd, vg, vs, vb = (_terminal(u, t, pol) for t in stamp.terminals)
-    if stamp.model == EKV:
-        i, dd, dg, ds, db = ekv(vd, vg, vs, vb, vth, beta, p.lam[k], p.slope[k], p.ut)
-        return DeviceState(i, dd, dg, ds, db, vd - vs)
-    return square_law_state(vd, vg, vs, vb, vth, beta, float(p.lam[k]), float(p.gamma[k]), float(p.phi[k]), need)
+    return mosfet_state(
+        stamp.model,
+        vd,
+        vg,
+        vs,
+        vb,
+        vth,
+        beta,
+        float(p.lam[k]),
+        float(p.gamma[k]),
+        float(p.phi[k]),
+        float(p.slope[k]),
+        p.ut,
+        need,
+    )
 
 
 DERIVATIVES = {"d": "di_dvd", "g": "di_dvg", "s": "di_dvs", "b": "di_dvb"}

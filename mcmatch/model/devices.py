@@ -1,33 +1,70 @@
-"""MOSFET drain-current models with analytic derivatives: square law and EKV.
+"""MOSFET device models: one entry point per question, dispatching to the square law or EKV.
 
-Pure numpy functions, vectorised over broadcastable arrays (typically a leading sample axis), computed in float64.
-Voltages are in the n-channel sense: the caller mirrors a p-channel device by negating its four terminal voltages and
-negating the returned current and derivatives. Both models return ``(i, di_dvd, di_dvg, di_dvs, di_dvb)``: the channel
-current flowing from drain to source [A] and its partial derivatives [S] with respect to the drain, gate, source and
-bulk voltages [V]. Scalar inputs give numpy float64 scalars; array inputs give arrays of the broadcast shape.
+The equations live once, in :mod:`mcmatch.model.square_law` and :mod:`mcmatch.model.ekv`; every path (the reference
+MNA system, the fast reduced system, the sensitivities and the operating-point descriptions) reaches them through
+here. Pure numpy, vectorised over broadcastable arrays (typically a leading sample axis), float64. Voltages are in the
+n-channel sense: the caller mirrors a p-channel device by negating its four terminal voltages and negating the
+returned current and derivatives. Currents flow from drain to source [A]; derivatives are with respect to the drain,
+gate, source and bulk voltages [S], second derivatives [A/V^2].
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import scipy.constants
-from scipy.special import expit
 
-FloatArray = float | np.ndarray
-DeviceCurrents = tuple[FloatArray, FloatArray, FloatArray, FloatArray, FloatArray]
+from mcmatch.model.ekv import (
+    EKV_CUTOFF_IC,
+    ekv,
+    ekv_hessian,
+    ekv_inversion_coefficient,
+    ekv_saturation_voltage,
+    ekv_state,
+    ekv_threshold,
+)
+from mcmatch.model.square_law import (
+    PHI_CLAMP_FRACTION,
+    square_law,
+    square_law_hessian,
+    square_law_saturation_voltage,
+    square_law_state,
+    square_law_threshold,
+)
+from mcmatch.model.state import DeviceCurrents, DeviceState, FloatArray, as_arrays, finish
 
-PHI_CLAMP_FRACTION = 0.1
-"""``phi + vsb`` is clamped from below at this fraction of ``phi`` so the body-effect square root stays real."""
+__all__ = [
+    "EKV",
+    "EKV_CUTOFF_IC",
+    "PHI_CLAMP_FRACTION",
+    "REGIONS",
+    "SQUARE_LAW",
+    "DeviceCurrents",
+    "DevicePoint",
+    "DeviceState",
+    "device_point",
+    "ekv",
+    "ekv_hessian",
+    "ekv_inversion_coefficient",
+    "ekv_saturation_voltage",
+    "ekv_threshold",
+    "mosfet_hessian",
+    "mosfet_state",
+    "square_law",
+    "square_law_hessian",
+    "square_law_saturation_voltage",
+    "square_law_threshold",
+    "thermal_voltage",
+]
 
+#: Model codes (DeviceParameters.model).
+SQUARE_LAW = 0
+EKV = 1
 
-def _as_arrays(*values: FloatArray) -> list[np.ndarray]:
-    """Convert to float64 and broadcast to one common shape (read-only views, no copies)."""
-    return np.broadcast_arrays(*(np.asarray(v, dtype=np.float64) for v in values))
-
-
-def _finish(value: np.ndarray) -> FloatArray:
-    """Return a numpy float64 scalar for 0-d results, the array otherwise."""
-    return value[()] if np.ndim(value) == 0 else value
+#: Region codes of :class:`DevicePoint` and their names.
+CUTOFF, TRIODE, SATURATION = 0, 1, 2
+REGIONS = ("cutoff", "triode", "saturation")
 
 
 def thermal_voltage(temperature: FloatArray) -> FloatArray:
@@ -36,149 +73,113 @@ def thermal_voltage(temperature: FloatArray) -> FloatArray:
     300 K gives 25.852 mV.
     """
     t = np.asarray(temperature, dtype=np.float64)
-    return _finish(scipy.constants.k * t / scipy.constants.e)
+    return finish(scipy.constants.k * t / scipy.constants.e)
 
 
-def _threshold(vsb: np.ndarray, vth0: np.ndarray, gamma: np.ndarray, phi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Threshold with body effect [V] and its derivative d vt / d vsb [1]; zero derivative where clamped."""
-    floor = PHI_CLAMP_FRACTION * phi
-    arg = phi + vsb
-    root = np.sqrt(np.maximum(arg, floor))
-    vt = vth0 + gamma * (root - np.sqrt(phi))
-    dvt_dvsb = np.where(arg < floor, 0.0, 0.5 * gamma / root)
-    return vt, dvt_dvsb
-
-
-def square_law_threshold(
-    vsb: FloatArray, vth0: FloatArray, gamma: FloatArray = 0.0, phi: FloatArray = 0.8
-) -> FloatArray:
-    """Threshold voltage with body effect vt = vth0 + gamma (sqrt(phi + vsb) - sqrt(phi)) [V].
-
-    Parameters: source-to-bulk voltage vsb [V], zero-bias threshold vth0 [V], body-effect coefficient gamma [V^0.5],
-    surface potential phi [V]. ``phi + vsb`` is clamped from below at ``PHI_CLAMP_FRACTION * phi``.
-    """
-    vsb_, vth0_, gamma_, phi_ = _as_arrays(vsb, vth0, gamma, phi)
-    return _finish(_threshold(vsb_, vth0_, gamma_, phi_)[0])
-
-
-def square_law_saturation_voltage(
-    vgs: FloatArray, vsb: FloatArray, vth0: FloatArray, gamma: FloatArray = 0.0, phi: FloatArray = 0.8
-) -> FloatArray:
-    """Square-law saturation voltage vdsat = vgs - vt, clipped at 0 [V].
-
-    Parameters: gate-to-source voltage vgs [V], source-to-bulk voltage vsb [V], zero-bias threshold vth0 [V],
-    body-effect coefficient gamma [V^0.5], surface potential phi [V].
-    """
-    vgs_, vsb_, vth0_, gamma_, phi_ = _as_arrays(vgs, vsb, vth0, gamma, phi)
-    vt, _ = _threshold(vsb_, vth0_, gamma_, phi_)
-    return _finish(np.maximum(vgs_ - vt, 0.0))
-
-
-def square_law(
-    vd: FloatArray,
-    vg: FloatArray,
-    vs: FloatArray,
-    vb: FloatArray,
-    vth0: FloatArray,
-    beta: FloatArray,
+def mosfet_state(
+    model: int,
+    vd: np.ndarray | float,
+    vg: np.ndarray | float,
+    vs: np.ndarray | float,
+    vb: np.ndarray | float,
+    vth0: np.ndarray | float,
+    beta: np.ndarray | float,
     lam: FloatArray,
-    gamma: FloatArray = 0.0,
-    phi: FloatArray = 0.8,
-) -> DeviceCurrents:
-    """Square-law (long-channel) drain current and its analytic derivatives.
-
-    Parameters: terminal voltages vd, vg, vs, vb [V]; zero-bias threshold vth0 [V]; beta = k' (W/L) m (1 + dbeta)
-    [A/V^2]; channel-length modulation lam [1/V]; body-effect coefficient gamma [V^0.5]; surface potential phi [V].
-
-    With vov = vgs - vt(vsb): cutoff (vov <= 0) i = 0; triode (vds < vov) i = beta (vov vds - vds^2/2)(1 + lam vds);
-    saturation (vds >= vov) i = beta/2 vov^2 (1 + lam vds). The device is symmetric: for vd < vs the lower terminal acts
-    as the source (also for the body effect) and the current is negative.
-
-    Returns ``(i, di_dvd, di_dvg, di_dvs, di_dvb)``: drain-to-source current [A] and its partial derivatives [S].
-    """
-    vd, vg, vs, vb, vth0, beta, lam, gamma, phi = _as_arrays(vd, vg, vs, vb, vth0, beta, lam, gamma, phi)
-    reverse = vd < vs
-    vds = np.abs(vd - vs)
-    vlow = np.minimum(vd, vs)
-    vt, dvt_dvsb = _threshold(vlow - vb, vth0, gamma, phi)
-    vov = vg - vlow - vt
-    on = vov > 0.0
-    sat = vds >= vov
-    clm = 1.0 + lam * vds
-    core = np.where(sat, 0.5 * vov**2, vov * vds - 0.5 * vds**2)
-    dcore_dvov = np.where(sat, vov, vds)
-    dcore_dvds = np.where(sat, 0.0, vov - vds)
-    # Current and conductances in the frame where the higher terminal is the drain.
-    i_fwd = np.where(on, beta * core * clm, 0.0)
-    gm = np.where(on, beta * dcore_dvov * clm, 0.0)
-    gds = np.where(on, beta * (dcore_dvds * clm + core * lam), 0.0)
-    gmb = gm * dvt_dvsb
-    d_high = gds
-    d_low = -(gds + gm + gmb)
-    sign = np.where(reverse, -1.0, 1.0)
-    return (
-        _finish(sign * i_fwd),
-        _finish(np.where(reverse, -d_low, d_high)),
-        _finish(sign * gm),
-        _finish(np.where(reverse, -d_high, d_low)),
-        _finish(sign * gmb),
-    )
-
-
-def _ekv_interpolation(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """EKV interpolation F(x) = ln^2(1 + e^(x/2)) [1] and dF/dx [1], overflow-free for large |x|."""
-    half = 0.5 * x
-    soft = np.logaddexp(0.0, half)
-    return soft**2, soft * expit(half)
-
-
-def ekv(
-    vd: FloatArray,
-    vg: FloatArray,
-    vs: FloatArray,
-    vb: FloatArray,
-    vth0: FloatArray,
-    beta: FloatArray,
-    lam: FloatArray,
+    gamma: FloatArray,
+    phi: FloatArray,
     slope: FloatArray,
     ut: FloatArray,
-) -> DeviceCurrents:
-    """EKV all-region drain current and its analytic derivatives.
+    need: str = "dgsb",
+) -> DeviceState:
+    """Current and first derivatives of one MOSFET of `model` (SQUARE_LAW or EKV) at a batch of points.
 
-    Parameters: terminal voltages vd, vg, vs, vb [V]; zero-bias threshold vth0 [V]; beta = k' (W/L) m (1 + dbeta)
-    [A/V^2]; channel-length modulation lam [1/V]; slope factor n [1]; thermal voltage ut [V].
-
-    With voltages referred to the bulk, V_P = (V_G - vth0)/n, I_S = 2 n beta U_T^2 and F(v) = ln^2(1 + e^(v/2)):
-    i = I_S [F((V_P - V_S)/U_T) - F((V_P - V_D)/U_T)] (1 + lam |vd - vs|).
-
-    Returns ``(i, di_dvd, di_dvg, di_dvs, di_dvb)``: drain-to-source current [A] and its partial derivatives [S].
+    Parameters: terminal voltages [V] (arrays of one shape, floats for fixed terminals); vth0 [V], beta [A/V^2] per
+    sample; lam [1/V]; gamma [V^0.5] and phi [V] (square law); slope factor n [1] and ut [V] (EKV). `need` names
+    the derivatives wanted, of "dgsb" (the square law may leave the others None; EKV computes all).
     """
-    vd, vg, vs, vb, vth0, beta, lam, slope, ut = _as_arrays(vd, vg, vs, vb, vth0, beta, lam, slope, ut)
-    with np.errstate(under="ignore"):
-        vp = (vg - vb - vth0) / slope
-        f_fwd, df_fwd = _ekv_interpolation((vp - (vs - vb)) / ut)
-        f_rev, df_rev = _ekv_interpolation((vp - (vd - vb)) / ut)
-        i_spec = 2.0 * slope * beta * ut**2
-        i0 = i_spec * (f_fwd - f_rev)
-        scale = i_spec / ut
-        vds = vd - vs
-        clm = 1.0 + lam * np.abs(vds)
-        dclm = lam * np.sign(vds)
-        di0_dvg = scale * (df_fwd - df_rev) / slope
-        di0_dvb = scale * (df_fwd - df_rev) * (1.0 - 1.0 / slope)
-        return (
-            _finish(i0 * clm),
-            _finish(scale * df_rev * clm + i0 * dclm),
-            _finish(di0_dvg * clm),
-            _finish(-scale * df_fwd * clm - i0 * dclm),
-            _finish(di0_dvb * clm),
-        )
+    if model == EKV:
+        return ekv_state(vd, vg, vs, vb, vth0, beta, lam, slope, ut)
+    return square_law_state(vd, vg, vs, vb, vth0, beta, lam, gamma, phi, need)
 
 
-def ekv_inversion_coefficient(i: FloatArray, beta: FloatArray, slope: FloatArray, ut: FloatArray) -> FloatArray:
-    """Inversion coefficient IC = i / I_S [1] with specific current I_S = 2 n beta U_T^2 [A].
+def mosfet_hessian(
+    model: int,
+    vd: FloatArray,
+    vg: FloatArray,
+    vs: FloatArray,
+    vb: FloatArray,
+    vth0: FloatArray,
+    beta: FloatArray,
+    lam: FloatArray,
+    gamma: FloatArray,
+    phi: FloatArray,
+    slope: FloatArray,
+    ut: FloatArray,
+) -> np.ndarray:
+    """Hessian (..., 4, 4) [A/V^2] of the current in (vd, vg, vs, vb); arguments as :func:`mosfet_state`."""
+    if model == EKV:
+        return ekv_hessian(vd, vg, vs, vb, vth0, beta, lam, slope, ut)
+    return square_law_hessian(vd, vg, vs, vb, vth0, beta, lam, gamma, phi)
 
-    Parameters: drain current i [A], beta [A/V^2], slope factor n [1], thermal voltage ut [V].
+
+@dataclass(frozen=True)
+class DevicePoint:
+    """A MOSFET's operating point, described in its conducting frame (the higher of drain and source acts as drain).
+
+    reversed: conducting with drain and source swapped; vgs, vds, vsb [V]; vth [V] (square law: with body effect;
+    EKV: vth0 + (n - 1) vsb); vov = vgs - vth [V]; vdsat [V] (square law: vov clipped at 0; EKV: 2 U_T sqrt(IC + 0.25)
+    + 3 U_T); headroom = vds - vdsat [V]; i [A], gm, gds, gmb [S]; ic = max(i, 0) / (2 n beta U_T^2) [1]; region:
+    CUTOFF (square law vov <= 0; EKV IC < EKV_CUTOFF_IC), TRIODE (vds < vdsat) or SATURATION. Arrays of the
+    broadcast input shape (0-d for scalar inputs).
     """
-    i_, beta_, slope_, ut_ = _as_arrays(i, beta, slope, ut)
-    return _finish(i_ / (2.0 * slope_ * beta_ * ut_**2))
+
+    reversed: np.ndarray
+    vgs: np.ndarray
+    vds: np.ndarray
+    vsb: np.ndarray
+    vth: np.ndarray
+    vov: np.ndarray
+    vdsat: np.ndarray
+    headroom: np.ndarray
+    i: np.ndarray
+    gm: np.ndarray
+    gds: np.ndarray
+    gmb: np.ndarray
+    ic: np.ndarray
+    region: np.ndarray
+
+
+def device_point(
+    model: int,
+    vd: FloatArray,
+    vg: FloatArray,
+    vs: FloatArray,
+    vb: FloatArray,
+    vth0: FloatArray,
+    beta: FloatArray,
+    lam: FloatArray,
+    gamma: FloatArray,
+    phi: FloatArray,
+    slope: FloatArray,
+    ut: FloatArray,
+) -> DevicePoint:
+    """Operating point of one MOSFET of `model` at a batch of points; arguments as :func:`mosfet_state`."""
+    vd, vg, vs, vb, vth0, beta, lam, gamma, phi, slope, ut = as_arrays(
+        vd, vg, vs, vb, vth0, beta, lam, gamma, phi, slope, ut
+    )
+    reverse = vd < vs
+    high, low = np.where(reverse, vs, vd), np.where(reverse, vd, vs)
+    vgs, vds, vsb = vg - low, high - low, low - vb
+    state = mosfet_state(model, high, vg, low, vb, vth0, beta, lam, gamma, phi, slope, ut)
+    i, gds, gm, _, gmb = (np.asarray(v) for v in state.currents())
+    ic = np.asarray(ekv_inversion_coefficient(np.maximum(i, 0.0), beta, slope, ut))
+    if model == EKV:
+        vth = np.asarray(ekv_threshold(vsb, vth0, slope))
+        vdsat = np.asarray(ekv_saturation_voltage(ic, ut))
+        cutoff = ic < EKV_CUTOFF_IC
+    else:
+        vth = np.asarray(square_law_threshold(vsb, vth0, gamma, phi))
+        vdsat = np.asarray(square_law_saturation_voltage(vgs, vsb, vth0, gamma, phi))
+        cutoff = vgs - vth <= 0.0
+    region = np.where(cutoff, CUTOFF, np.where(vds < vdsat, TRIODE, SATURATION))
+    return DevicePoint(reverse, vgs, vds, vsb, vth, vgs - vth, vdsat, vds - vdsat, i, gm, gds, gmb, ic, region)

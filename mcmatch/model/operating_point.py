@@ -13,17 +13,16 @@ import numpy as np
 
 from mcmatch.config.schema import GROUND, Config
 from mcmatch.model.circuit import Circuit
-from mcmatch.model.devices import ekv, ekv_inversion_coefficient, square_law, square_law_saturation_voltage
-from mcmatch.model.devices import square_law_threshold as _threshold
-from mcmatch.model.technology import EKV
+from mcmatch.model.devices import EKV, REGIONS, device_point
+
+# Re-exported: the device model owns these (mcmatch.model.ekv); callers have imported them from here.
+from mcmatch.model.devices import EKV_CUTOFF_IC as EKV_CUTOFF_IC
+from mcmatch.model.devices import ekv_saturation_voltage as ekv_saturation_voltage
 
 #: Inversion coefficient limits: weak below 0.1, strong above 10, moderate between (Enz, Vittoz, Charge-based MOS
 #: transistor modeling, 2006; Binkley, Tradeoffs and optimization in analog CMOS design, 2008).
 WEAK_INVERSION_IC = 0.1
 STRONG_INVERSION_IC = 10.0
-#: An EKV device carrying less than this fraction of its specific current is reported as cut off (about 7 n U_T below
-#: threshold: its current is negligible for a bias circuit).
-EKV_CUTOFF_IC = 1e-3
 #: A saturated device with less headroom Vds - Vdsat than this [V] gets a warning: mismatch or a corner may push it
 #: into triode.
 LOW_HEADROOM = 0.05
@@ -38,15 +37,6 @@ def inversion_level(ic: float) -> str:
     if ic > STRONG_INVERSION_IC:
         return "strong"
     return "moderate"
-
-
-def ekv_saturation_voltage(ic: float, ut: float) -> float:
-    """Drain saturation voltage [V] for inversion coefficient `ic` [1]: 2 U_T sqrt(IC + 0.25) + 3 U_T.
-
-    The usual moderate-inversion estimate (Enz, Vittoz 2006): 4 U_T in weak inversion (IC -> 0) and about
-    2 U_T sqrt(IC) = (Vgs - Vt) / n, the pinch-off voltage above the source, in strong inversion.
-    """
-    return 2.0 * ut * math.sqrt(ic + 0.25) + 3.0 * ut
 
 
 def _node_name(circuit: Circuit, index: int) -> str:
@@ -66,11 +56,8 @@ def device_operating_points(circuit: Circuit, x: np.ndarray) -> list[dict]:
     derived from the same formula with the technology's slope factor, the square law itself having no weak
     inversion), vgs, vds, vsb, vth (with body effect), vov = vgs - vth, vdsat, headroom = vds - vdsat [V],
     id [A], gm, gds, gmb [S] (the device's analytic derivatives; the solver's GMIN across the channel is not in gds),
-    gm_id [1/V] (None where the current is zero).
-
-    Square law: vdsat = vov (clipped at 0); cutoff for vov <= 0. EKV: the threshold seen from the source is
-    vth0 + (n - 1) vsb; vdsat = 2 U_T sqrt(IC + 0.25) + 3 U_T, the usual moderate-inversion estimate; cutoff for
-    IC < EKV_CUTOFF_IC. Triode when vds < vdsat, else saturation.
+    gm_id [1/V] (None where the current is zero). Thresholds, vdsat and regions are the device model's own
+    (:class:`mcmatch.model.devices.DevicePoint`).
     """
     p = circuit.params
     xe = np.append(np.asarray(x, dtype=float).reshape(-1), 0.0)
@@ -79,26 +66,10 @@ def device_operating_points(circuit: Circuit, x: np.ndarray) -> list[dict]:
         pol = float(p.polarity[k])
         d, g, s, b = (int(circuit.drain[k]), int(circuit.gate[k]), int(circuit.source[k]), int(circuit.bulk[k]))
         vd, vg, vs, vb = (pol * xe[i] for i in (d, g, s, b))
-        reverse = vd < vs
-        if reverse:
-            vd, vs = vs, vd
-        vgs, vds, vsb = vg - vs, vd - vs, vs - vb
-        if p.model[k] == EKV:
-            i, di_d, di_g, _, di_b = ekv(vd, vg, vs, vb, p.vth[k], p.beta[k], p.lam[k], p.slope[k], p.ut)
-            vth = p.vth[k] + (p.slope[k] - 1.0) * vsb
-        else:
-            i, di_d, di_g, _, di_b = square_law(vd, vg, vs, vb, p.vth[k], p.beta[k], p.lam[k], p.gamma[k], p.phi[k])
-            vth = _threshold(vsb, p.vth[k], p.gamma[k], p.phi[k])
-        i, gm, gds, gmb = float(i), float(di_g), float(di_d), float(di_b)
-        ic = float(ekv_inversion_coefficient(max(i, 0.0), p.beta[k], p.slope[k], p.ut))
-        vov = float(vgs - vth)
-        if p.model[k] == EKV:
-            vdsat = ekv_saturation_voltage(ic, p.ut)
-            cutoff = ic < EKV_CUTOFF_IC
-        else:
-            vdsat = float(square_law_saturation_voltage(vgs, vsb, p.vth[k], p.gamma[k], p.phi[k]))
-            cutoff = vov <= 0.0
-        region = "cutoff" if cutoff else ("triode" if vds < vdsat else "saturation")
+        pt = device_point(
+            p.model[k], vd, vg, vs, vb, p.vth[k], p.beta[k], p.lam[k], p.gamma[k], p.phi[k], p.slope[k], p.ut
+        )
+        i, gm, ic = float(pt.i), float(pt.gm), float(pt.ic)
         points.append(
             {
                 "name": name,
@@ -109,21 +80,21 @@ def device_operating_points(circuit: Circuit, x: np.ndarray) -> list[dict]:
                 "source": _node_name(circuit, s),
                 "bulk": _node_name(circuit, b),
                 "diode_connected": d == g,
-                "reversed": bool(reverse),
-                "region": region,
+                "reversed": bool(pt.reversed),
+                "region": REGIONS[int(pt.region)],
                 "inversion": inversion_level(ic),
                 "ic": ic,
-                "vgs": float(vgs),
-                "vds": float(vds),
-                "vsb": float(vsb),
-                "vth": float(vth),
-                "vov": vov,
-                "vdsat": float(vdsat),
-                "headroom": float(vds - vdsat),
+                "vgs": float(pt.vgs),
+                "vds": float(pt.vds),
+                "vsb": float(pt.vsb),
+                "vth": float(pt.vth),
+                "vov": float(pt.vov),
+                "vdsat": float(pt.vdsat),
+                "headroom": float(pt.headroom),
                 "id": i,
                 "gm": gm,
-                "gds": gds,
-                "gmb": gmb,
+                "gds": float(pt.gds),
+                "gmb": float(pt.gmb),
                 "gm_id": _none_if_bad(gm / i) if i > 0 else None,
             }
         )

@@ -6,8 +6,8 @@ own (n-channel mirrored) frame d i / d vth = -d i / d vg; both models are linear
 A p-channel device's drain-leaving current is polarity * i(polarity * V); its vth is the threshold magnitude.
 Measures that are functions of x (currents, voltages, ratios) chain through. A node resistance r = e^T J^-1 e needs
 the derivative of J itself: dr/dp = -e^T J^-1 (dJ/dp) J^-1 e, with dJ/dp from the analytic Hessian of each device
-current in its four terminal voltages (derived here for the square law and EKV, checked against the first derivatives
-of :mod:`mcmatch.model.devices`), applied along dx/dp, plus the direct terms of vth (minus the gate column) and beta.
+current in its four terminal voltages (:func:`mcmatch.model.devices.mosfet_hessian`), applied along dx/dp, plus the
+direct terms of vth (minus the gate column) and beta.
 
 Pure numpy on one operating point; no finite differences.
 """
@@ -15,12 +15,11 @@ Pure numpy on one operating point; no finite differences.
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import expit
 
 from mcmatch.config.schema import Measure
 from mcmatch.model.circuit import Circuit, extend, mosfet_currents, residual_jacobian
-from mcmatch.model.devices import PHI_CLAMP_FRACTION
-from mcmatch.model.technology import EKV
+from mcmatch.model.devices import mosfet_hessian
+from mcmatch.model.small_signal import branch_unknown, port_resistance
 
 VTH = "vth"
 BETA = "beta"
@@ -94,81 +93,13 @@ def _current_and_gradient(circuit: Circuit, xe: np.ndarray, dxe: np.ndarray, nam
     return float(g * (xe[0, a] - xe[0, b])), g * (dxe[a] - dxe[b])
 
 
-# --------------------------------------------------------------------------------------------- second order
-def square_law_hessian(
-    vd: float, vg: float, vs: float, vb: float, vth0: float, beta: float, lam: float, gamma: float, phi: float
-) -> np.ndarray:
-    """Hessian (4, 4) of the square-law drain current in (vd, vg, vs, vb) [A/V^2]; arguments as devices.square_law.
-
-    Region by region (cutoff, triode, saturation) with the body-effect threshold's curvature; zero in cutoff.
-    """
-    reverse = vd < vs
-    high, low = (vs, vd) if reverse else (vd, vs)
-    vds = high - low
-    arg = phi + low - vb
-    floor = PHI_CLAMP_FRACTION * phi
-    if arg < floor:
-        root, vt1, vt2 = np.sqrt(floor), 0.0, 0.0
-    else:
-        root = np.sqrt(arg)
-        vt1, vt2 = 0.5 * gamma / root, -0.25 * gamma / root**3
-    vov = vg - low - (vth0 + gamma * (root - np.sqrt(phi)))
-    # derivatives of core = vov^2/2 (saturation) or vov vds - vds^2/2 (triode) in (vov, vds)
-    hess = np.zeros((4, 4))  # order: high terminal, gate, low terminal, bulk
-    if vov > 0.0:
-        clm = 1.0 + lam * vds
-        if vds >= vov:
-            c_o, c_d, c_oo, c_od, c_dd = vov, 0.0, 1.0, 0.0, 0.0
-        else:
-            c_o, c_d, c_oo, c_od, c_dd = vds, vov - vds, 0.0, 1.0, -1.0
-        g_o = beta * c_o * clm
-        g_oo = beta * c_oo * clm
-        g_od = beta * (c_od * clm + c_o * lam)
-        g_dd = beta * (c_dd * clm + 2.0 * c_d * lam)
-        a = np.array([0.0, 1.0, -1.0 - vt1, vt1])  # gradient of vov
-        b = np.array([1.0, 0.0, -1.0, 0.0])  # gradient of vds
-        curv = np.zeros((4, 4))  # Hessian of vov, from the threshold's curvature in vsb
-        curv[2, 2], curv[2, 3], curv[3, 2], curv[3, 3] = -vt2, vt2, vt2, -vt2
-        hess = g_oo * np.outer(a, a) + g_od * (np.outer(a, b) + np.outer(b, a)) + g_dd * np.outer(b, b) + g_o * curv
-    if reverse:  # i(vd, vg, vs, vb) = -i_forward(vs, vg, vd, vb)
-        perm = [2, 1, 0, 3]
-        hess = -hess[np.ix_(perm, perm)]
-    return hess
-
-
-def ekv_hessian(
-    vd: float, vg: float, vs: float, vb: float, vth0: float, beta: float, lam: float, slope: float, ut: float
-) -> np.ndarray:
-    """Hessian (4, 4) of the EKV drain current in (vd, vg, vs, vb) [A/V^2]; arguments as devices.ekv.
-
-    F(x) = ln^2(1 + e^(x/2)) has F'' = s(1 - s) ln(1 + e^(x/2)) / 2 + s^2 / 2 with s = 1/(1 + e^(-x/2)).
-    """
-    vp = (vg - vb - vth0) / slope
-    i_spec = 2.0 * slope * beta * ut**2
-    grad_f = np.array([0.0, 1.0 / slope, -1.0, 1.0 - 1.0 / slope]) / ut
-    grad_r = np.array([-1.0, 1.0 / slope, 0.0, 1.0 - 1.0 / slope]) / ut
-    parts = []
-    for x in ((vp - (vs - vb)) / ut, (vp - (vd - vb)) / ut):
-        soft, sig = np.logaddexp(0.0, 0.5 * x), expit(0.5 * x)
-        parts.append((soft * sig, 0.5 * sig * sig + 0.5 * soft * sig * (1.0 - sig)))
-    (f1_f, f2_f), (f1_r, f2_r) = parts
-    grad0 = i_spec * (f1_f * grad_f - f1_r * grad_r)
-    hess0 = i_spec * (f2_f * np.outer(grad_f, grad_f) - f2_r * np.outer(grad_r, grad_r))
-    vds = vd - vs
-    clm = 1.0 + lam * abs(vds)
-    c = lam * np.sign(vds) * np.array([1.0, 0.0, -1.0, 0.0])
-    return hess0 * clm + np.outer(grad0, c) + np.outer(c, grad0)
-
-
 def device_hessian(circuit: Circuit, x: np.ndarray, k: int) -> np.ndarray:
     """Hessian (4, 4) of MOSFET k's current in its own (n-channel mirrored) frame, order drain, gate, source, bulk."""
     p = circuit.params
     xe = extend(np.asarray(x, dtype=float).reshape(1, -1))[0]
     pol = p.polarity[k]
     volts = [pol * xe[node] for node in (circuit.drain[k], circuit.gate[k], circuit.source[k], circuit.bulk[k])]
-    if p.model[k] == EKV:
-        return ekv_hessian(*volts, p.vth[k], p.beta[k], p.lam[k], p.slope[k], p.ut)
-    return square_law_hessian(*volts, p.vth[k], p.beta[k], p.lam[k], p.gamma[k], p.phi[k])
+    return mosfet_hessian(p.model[k], *volts, p.vth[k], p.beta[k], p.lam[k], p.gamma[k], p.phi[k], p.slope[k], p.ut)
 
 
 def jacobian_parameter_derivatives(circuit: Circuit, x: np.ndarray) -> np.ndarray:
@@ -231,6 +162,10 @@ def measure_sensitivities(
             den, dden = _current_and_gradient(circuit, xe, dxe, measure.ratio[1])
             ideal = 1.0 if measure.ideal is None else measure.ideal
             out[key] = (dnum / den - num * dden / den**2) / ideal if den != 0 else None
+        elif measure.port_resistance is not None:  # r = 1 / (e_b^T J^-1 e_b): dr = -r^2 d(e_b^T J^-1 e_b)
+            b = branch_unknown(circuit, measure.port_resistance)
+            r = port_resistance(circuit, residual_jacobian(circuit, *_nominal(circuit, x))[1], measure.port_resistance)
+            out[key] = -(float(r[0]) ** 2) * resistance_sensitivity(circuit, x, b)
         else:
             out[key] = resistance_sensitivity(circuit, x, circuit.node_index(measure.resistance))
     return out

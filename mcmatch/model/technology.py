@@ -13,10 +13,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from mcmatch.config.schema import Netlist, Technology
-from mcmatch.model.devices import thermal_voltage
-
-SQUARE_LAW = 0
-EKV = 1
+from mcmatch.model.devices import EKV, SQUARE_LAW, thermal_voltage
 
 
 @dataclass(frozen=True)

@@ -1,8 +1,9 @@
 """Drawings of placement candidates: unit cells as coloured, hatched squares with their letters, centroids marked.
 
 Data in (one entry of summary["placements"]), ``ax=None``, return ``ax``. Matplotlib is imported here only, with the
-Agg backend; figures are built on :class:`matplotlib.figure.Figure` directly (no pyplot state), so a report can embed
-them with :func:`mcmatch.report.figures.data_uri` or ``fig.savefig``. Colour and hatch both tell the devices apart, so
+Agg backend; figures are built on :class:`matplotlib.figure.Figure` directly (no pyplot state), for
+``mcmatch placements --plot`` (``fig.savefig`` to PNG or SVG). The report draws the same cells as inline SVG with
+:mod:`mcmatch.report.placement_grid`, which holds the shared palette. Colour and hatch both tell the devices apart, so
 the drawing still reads in black and white.
 """
 
@@ -19,21 +20,10 @@ from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.patches import Rectangle  # noqa: E402
 
 from mcmatch.draws.placement import cell_layout  # noqa: E402
+from mcmatch.report.placement_grid import CELL_FILL, DEVICE_STYLE, DUMMY_STYLE  # noqa: E402 - one palette
 
 INK = "#1d2b3a"
 SLATE = "#5a6b7d"
-#: (fill, hatch, centroid marker) per device, in letter order.
-DEVICE_STYLE = (
-    ("#7c99b4", "////", "o"),
-    ("#e3c58f", "....", "X"),
-    ("#a9c8a0", "\\\\\\\\", "D"),
-    ("#d4a5a5", "xx", "^"),
-    ("#b9b0d6", "--", "s"),
-    ("#c9d6df", "++", "v"),
-)
-DUMMY_STYLE = ("#eeeeee", "", None)
-#: Cell drawn as this fraction of the pitch, leaving a gap between neighbours.
-CELL_FILL = 0.86
 MICRON = 1e6
 
 

@@ -1,349 +1,204 @@
-"""Figures of a run: data in, ``ax=None``, return ``ax``. The only module that imports matplotlib and seaborn.
+"""Figures of a run as inline SVG with real text: data in, ``ax=None``, return ``ax`` (a :class:`~.svg.Canvas`).
 
 Every function draws SI values multiplied by ``scale`` and labels the axis with ``unit`` (the display unit chosen by
-the caller, for example ``scale=1e6, unit="µA"``). The look is the report's own: ink lines on a pale steel fill, spec
-limits dashed with hatched out-of-spec regions, the nominal point dotted, so every figure still reads when printed in
-black and white. With ``ax=None`` a function sizes its own figure (fixed margins in inches, no layout engine: the report
-renders in a few seconds); figures are :class:`matplotlib.figure.Figure` objects, outside pyplot's global state.
-Embed one in HTML with :func:`data_uri`.
+the caller, for example ``scale=1e6, unit="µA"``). The look: ink lines on a pale steel fill, spec limits dashed with
+hatched out-of-spec regions, the nominal point dotted, so every figure still reads printed in black and white. With
+``ax=None`` a function sizes its own canvas; pass ``title`` (the accessible name) and ``desc`` (its key numbers) and
+embed ``ax.svg()`` in the page. Pure numpy and the standard library: no plotting library, so a report renders in a
+fraction of a second.
 """
 
 from __future__ import annotations
 
-import base64
-import io
-from collections.abc import Iterator, Mapping, Sequence
-from contextlib import contextmanager
+import math
+from collections.abc import Mapping, Sequence
+from statistics import NormalDist
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
+from mcmatch.report.svg import CHAR, Canvas, log_ticks, nice_ticks
 
-import matplotlib.pyplot as plt  # noqa: E402 - the backend must be chosen first
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-import seaborn as sns  # noqa: E402
-from matplotlib.axes import Axes  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.patches import Patch  # noqa: E402
-from matplotlib.ticker import FuncFormatter, LogLocator, MaxNLocator, NullFormatter  # noqa: E402
-from scipy import stats  # noqa: E402
-
-#: Report palette: deep ink, slate, a pale steel fill, a brick red for limits, an ochre for the nominal point.
-INK = "#1d2b3a"
-SLATE = "#5a6b7d"
-FILL = "#b9cbdc"
-FILL_DARK = "#7c99b4"
-LIMIT = "#a8322d"
-NOMINAL = "#b7791f"
-GRID = "#dde2e8"
-#: Colour and hatch per mismatch parameter in contribution bars: either alone tells them apart.
-#: (Dotted hatches are avoided: matplotlib writes every dot as a path and the SVG grows to hundreds of kB.)
-PARAMETER_STYLE = {"vth": (FILL_DARK, "////"), "beta": ("#e3c58f", "\\\\\\\\"), "other": ("#c9c9c9", "xx")}
-LIMIT_DASH = (0, (5, 2.5))
-#: Width of one character of tick or legend text [inch] at the style's 7.5 pt, for margins sized without drawing.
-CHAR = 0.058
-
-STYLE = {
-    **sns.axes_style("ticks"),
-    "font.family": "DejaVu Sans",
-    "font.size": 8.5,
-    "axes.titlesize": 9.5,
-    "axes.titleweight": "bold",
-    "axes.titlelocation": "left",
-    "axes.titlepad": 5.0,
-    "axes.labelsize": 8.5,
-    "axes.labelcolor": INK,
-    "axes.edgecolor": SLATE,
-    "axes.linewidth": 0.7,
-    "axes.grid": True,
-    "axes.axisbelow": True,
-    "axes.formatter.useoffset": False,
-    "grid.color": GRID,
-    "grid.linewidth": 0.6,
-    "xtick.color": SLATE,
-    "ytick.color": SLATE,
-    "xtick.labelcolor": INK,
-    "ytick.labelcolor": INK,
-    "xtick.labelsize": 7.5,
-    "ytick.labelsize": 7.5,
-    "text.color": INK,
-    "legend.fontsize": 7.5,
-    "legend.frameon": False,
-    "legend.borderaxespad": 0.3,
-    "hatch.linewidth": 0.6,
-    "hatch.color": LIMIT,
-    "svg.fonttype": "path",  # text drawn as outlines: looks the same on any machine, years from now
-    "svg.hashsalt": "mcmatch",  # deterministic element ids: the same data give the same file
-    "figure.dpi": 100,
-    "figure.facecolor": "white",
-}
-
-
-@contextmanager
-def style() -> Iterator[None]:
-    """The report's matplotlib style, for building and saving figures inside the block."""
-    with matplotlib.rc_context(STYLE):
-        yield
+#: Share of the variance below which a contribution term is folded into "others" [1].
+MIN_SHARE = 0.001
+#: Marker and hatch per mismatch parameter in contribution bars: either alone tells them apart.
+PARAMETER_CLASS = {"vth": "bar-vth", "beta": "bar-beta", "other": "bar-other"}
 
 
 def new_axes(
-    width: float = 6.4, height: float = 2.6, margins: tuple[float, float, float, float] = (0.6, 0.15, 0.45, 0.3)
-) -> Axes:
-    """One Axes on a fresh figure (no pyplot state): size and margins (left, right, bottom, top) [inch]."""
-    left, right, bottom, top = margins
-    with style():
-        fig = Figure(figsize=(width, height))
-        fig.subplots_adjust(
-            left=min(left / width, 0.8),
-            right=max(1 - right / width, 0.2),
-            bottom=min(bottom / height, 0.8),
-            top=max(1 - top / height, 0.2),
-        )
-        return fig.add_subplot()
+    width: float = 560, height: float = 250, margins: tuple[float, float, float, float] = (50, 12, 42, 26)
+) -> Canvas:
+    """One empty canvas: size and margins (left, right, bottom, top) [px of the viewBox]."""
+    return Canvas(width, height, margins)
 
 
-def data_uri(ax: Axes | Figure, fmt: str = "svg") -> str:
-    """The figure holding `ax` as a ``data:`` URI (SVG or PNG, base64), ready for an <img src>. Closes the figure."""
-    fig = ax if isinstance(ax, Figure) else ax.figure
-    buf = io.BytesIO()
-    with style():
-        if fmt == "svg":
-            fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
-            mime = "image/svg+xml"
-        else:
-            fig.savefig(buf, format="png", dpi=130, metadata={"Software": None})
-            mime = "image/png"
-    plt.close(fig)  # harmless for a pyplot-free figure; frees one a caller made through pyplot
-    return f"data:{mime};base64,{base64.b64encode(buf.getvalue()).decode('ascii')}"
-
-
-def label(text: object) -> str:
-    """A user-supplied name made safe for matplotlib text: '$' would start mathtext."""
-    return str(text).replace("$", r"\$")
-
-
-# --------------------------------------------------------------------------------------------- helpers
-def _values(data: object, column: str | None) -> np.ndarray:
-    if isinstance(data, pd.DataFrame):
-        data = data[column] if column is not None else data.iloc[:, 0]
+def _values(data: object) -> np.ndarray:
     v = np.asarray(data, dtype=float).ravel()
     return v[np.isfinite(v)]
 
 
-def _scaled(limits: Mapping | None, scale: float) -> dict[str, float | None]:
-    """The "min" and "max" of a spec [SI] in display units; other keys (such as "unit") are ignored."""
-    out: dict[str, float | None] = {}
-    for side in ("min", "max"):
-        value = (limits or {}).get(side)
-        out[side] = None if value is None else float(value) * scale
-    return out
+def _scaled(limits: Mapping | None, scale: float) -> dict[str, float]:
+    """The "min" and "max" of a spec [SI] in display units (absent sides left out)."""
+    return {s: float(limits[s]) * scale for s in ("min", "max") if limits and limits.get(s) is not None}
 
 
-def _limits_in_view(limits: dict[str, float | None], lo: float, hi: float) -> dict[str, float]:
-    """Spec limits [display units] near enough to the data to draw; farther ones are named in text only."""
+def _in_view(limits: dict[str, float], lo: float, hi: float) -> dict[str, float]:
+    """Spec limits near enough to the data to draw; farther ones are named at the edge in text only."""
     span = max(hi - lo, 1e-300)
-    return {s: v for s, v in limits.items() if v is not None and lo - 1.5 * span <= v <= hi + 1.5 * span}
+    return {s: v for s, v in limits.items() if lo - 1.5 * span <= v <= hi + 1.5 * span}
 
 
-def _shade_out_of_spec(ax: Axes, limits: dict[str, float], vertical: bool = True) -> None:
-    """Hatch the regions outside the spec and draw the limits as dashed lines (keeps the current view)."""
-    lo, hi = ax.get_xlim() if vertical else ax.get_ylim()
-    span = ax.axvspan if vertical else ax.axhspan
-    line = ax.axvline if vertical else ax.axhline
+def _spec_x(ax: Canvas, limits: dict[str, float], shown: dict[str, float], unit: str) -> None:
+    """Hatch outside the spec along x, draw the limits dashed, and name limits out of view at the top edge."""
+    for side, value in shown.items():
+        if side == "min":
+            ax.hatch_x(ax.x.lo_data, value)
+        else:
+            ax.hatch_x(value, ax.x.hi_data)
+    for value in shown.values():
+        ax.vline(value, "limit")
     for side, value in limits.items():
-        a, b = (lo, value) if side == "min" else (value, hi)
-        if b > a:
-            span(a, b, facecolor="#f6e9e8", edgecolor=LIMIT, hatch="////", linewidth=0, alpha=0.55, zorder=0)
-        line(value, color=LIMIT, linestyle=LIMIT_DASH, linewidth=1.3, zorder=3)
-    (ax.set_xlim if vertical else ax.set_ylim)(lo, hi)
+        if side not in shown:
+            text = f"\u2190 min {value:.4g} {unit}" if side == "min" else f"max {value:.4g} {unit} \u2192"
+            x, anchor = (ax.x0 + 4, "start") if side == "min" else (ax.x1 - 4, "end")
+            ax.text(x, ax.y0 + 12, text, "limit-text", anchor)
 
 
-def _far_limits(ax: Axes, limits: dict[str, float | None], shown: dict[str, float], unit: str) -> None:
-    """Name the spec limits too far from the data to draw, at the plot's edge with an arrow."""
-    for side, value in limits.items():
-        if value is None or side in shown:
-            continue
-        text = f"\u2190 min {value:.4g} {unit}" if side == "min" else f"max {value:.4g} {unit} \u2192"
-        ax.text(
-            0.01 if side == "min" else 0.99,
-            0.97,
-            text,
-            transform=ax.transAxes,
-            ha="left" if side == "min" else "right",
-            va="top",
-            color=LIMIT,
-            fontsize=7,
-        )
+def _legend_items(nominal: bool, spec: bool, n: int) -> list[tuple[str, str, str]]:
+    items = [("box", "bar", f"samples (n = {n:,})"), ("line", "fit", "normal fit")]
+    items += [("line", "nominal", "nominal")] if nominal else []
+    items += [("line", "limit", "spec limit"), ("hatch", "out", "outside spec")] if spec else []
+    return items
 
 
-def _tick_chars(ax: Axes, axis: str = "y") -> int:
-    """Longest tick label of an axis in characters (for a margin sized without drawing)."""
-    a = ax.yaxis if axis == "y" else ax.xaxis
-    lo, hi = a.get_view_interval()
-    ticks = [t for t in a.get_majorticklocs() if min(lo, hi) <= t <= max(lo, hi)]
-    return max((len(s) for s in a.get_major_formatter().format_ticks(ticks)), default=4)
-
-
-def _legend_right(ax: Axes, **kwargs) -> None:
-    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), **kwargs)
-
-
-# --------------------------------------------------------------------------------------------- plots
 def histogram(
-    data: pd.DataFrame | np.ndarray | Sequence[float],
-    ax: Axes | None = None,
+    data: Sequence[float] | np.ndarray,
+    ax: Canvas | None = None,
     *,
-    column: str | None = None,
     mean: float | None = None,
     std: float | None = None,
     nominal: float | None = None,
     limits: Mapping | None = None,
     scale: float = 1.0,
     unit: str = "",
-    name: str | None = None,
+    name: str = "value",
     title: str | None = None,
     legend: str = "right",
-) -> Axes:
+    desc: str = "",
+) -> Canvas:
     """Density histogram of one measure with its fitted normal, nominal value and hatched out-of-spec regions.
 
-    data: samples [SI] (or a DataFrame and `column`); mean, std: the fitted normal [SI] (default: from the data);
-    nominal: the no-mismatch value [SI]; limits: {"min", "max"} [SI or None]; scale, unit: display conversion;
-    name: the measure's name for the axis label; legend: "right" (beside the axes), "inside" or "none".
+    data: samples [SI]; mean, std: the fitted normal [SI] (default: from the data); nominal: the no-mismatch value
+    [SI]; limits: {"min", "max"} [SI or None]; scale, unit: display conversion; legend: "right" or "inside".
     """
+    top = 26 if title else 10
     if ax is None:
-        if legend == "right":
-            ax = new_axes(5.6, 2.5, (0.3, 1.55, 0.45, 0.3 if title else 0.12))
-        else:
-            ax = new_axes(4.2, 2.3, (0.3, 0.15, 0.45, 0.3 if title else 0.12))
-    v = _values(data, column) * scale
+        ax = new_axes(560, 250, (24, 168, 42, top)) if legend == "right" else new_axes(420, 240, (24, 12, 42, top))
+    ax.title = title or f"histogram of {name}"
+    ax.desc = desc
+    v = _values(data) * scale
+    if title:
+        ax.heading(title)
     if v.size == 0:
-        ax.text(0.5, 0.5, "no converged samples", transform=ax.transAxes, ha="center", va="center")
+        ax.text((ax.x0 + ax.x1) / 2, (ax.y0 + ax.y1) / 2, "no converged samples", "label", "middle")
         return ax
     mu = float(v.mean()) if mean is None else mean * scale
     sigma = float(v.std(ddof=1) if v.size > 1 else 0.0) if std is None else std * scale
+    lo, hi = float(v.min()), float(v.max())
+    if sigma > 0:
+        lo, hi = min(lo, mu - 4 * sigma), max(hi, mu + 4 * sigma)
+    spec = _scaled(limits, scale)
+    shown = _in_view(spec, lo, hi)
+    lo, hi = min([lo, *shown.values()]), max([hi, *shown.values()])
+    pad = 0.04 * (hi - lo or abs(mu) or 1.0)
+    lo, hi = lo - pad, hi + pad
     bins = int(np.clip(np.sqrt(v.size) * 0.9, 12, 70))
-    limits_d = _scaled(limits, scale)
-    with style():
-        sns.histplot(
-            x=v,
-            ax=ax,
-            bins=bins,
-            stat="density",
-            color=FILL,
-            edgecolor=FILL_DARK,
-            linewidth=0.5,
-            alpha=1.0,
-            label=f"samples (n = {v.size:,})",
-        )
-        lo, hi = float(v.min()), float(v.max())
-        if sigma > 0:
-            lo, hi = min(lo, mu - 4 * sigma), max(hi, mu + 4 * sigma)
-            x = np.linspace(lo, hi, 240)
-            ax.plot(x, stats.norm.pdf(x, mu, sigma), color=INK, linewidth=1.4, label="normal fit")
-        shown = _limits_in_view(limits_d, lo, hi)
-        lo, hi = min([lo, *shown.values()]), max([hi, *shown.values()])
-        pad = 0.04 * (hi - lo or abs(mu) or 1.0)
-        ax.set_xlim(lo - pad, hi + pad)
-        ax.xaxis.set_major_locator(MaxNLocator(nbins=8 if legend == "right" else 5, steps=[1, 2, 2.5, 5, 10]))
-        if nominal is not None:
-            ax.axvline(nominal * scale, color=NOMINAL, linestyle=":", linewidth=1.8, label="nominal", zorder=4)
-        _shade_out_of_spec(ax, shown)
-        _far_limits(ax, limits_d, shown, unit)
-        if shown:
-            ax.plot([], [], color=LIMIT, linestyle=LIMIT_DASH, linewidth=1.3, label="spec limit")
-            ax.fill_between(
-                [], [], facecolor="#f6e9e8", edgecolor=LIMIT, hatch="////", linewidth=0, label="outside spec"
-            )
-        text = label(name or column or "value")
-        ax.set_xlabel(f"{text} [{unit}]" if unit else text)
-        ax.set_ylabel("density")
-        handles, names = ax.get_legend_handles_labels()
-        order = sorted(range(len(names)), key=lambda i: (not names[i].startswith("samples"), i))
-        handles, names = [handles[i] for i in order], [names[i] for i in order]
-        if legend == "right":
-            ax.legend(handles, names, loc="upper left", bbox_to_anchor=(1.01, 1))
-        elif legend == "inside":
-            ax.legend(
-                handles,
-                names,
-                loc="upper left",
-                fontsize=6.5,
-                frameon=True,
-                facecolor="white",
-                edgecolor="none",
-                framealpha=0.85,
-            )
-        ax.set_yticklabels([])
-        ax.tick_params(axis="y", length=0)
-        ax.set_ylim(0, None)
-        if title:
-            ax.set_title(label(title))
-        sns.despine(ax=ax)
+    counts, edges = np.histogram(v, bins=bins, density=True)
+    x = np.linspace(lo, hi, 160)
+    pdf = np.exp(-0.5 * ((x - mu) / sigma) ** 2) / (sigma * math.sqrt(2 * math.pi)) if sigma > 0 else None
+    peak = max(float(counts.max()), float(pdf.max()) if pdf is not None else 0.0)
+    ax.set_x(lo, hi)
+    ax.set_y(0.0, peak * 1.08 or 1.0)
+    ticks = nice_ticks(lo, hi, 7 if legend == "right" else 5)
+    ax.x_axis(ticks, label=f"{name} [{unit}]" if unit else name)
+    _spec_x(ax, spec, shown, unit)
+    xs = np.repeat(edges, 2)
+    ys = np.concatenate([[0.0], np.repeat(counts, 2), [0.0]])
+    px, py = ax.x(xs), ax.y(ys)
+    ax.path("M" + "L".join(f"{a:.1f} {b:.1f}" for a, b in zip(px, py, strict=True)) + "Z", "bar")
+    ax.artists += 1
+    if pdf is not None:
+        ax.line(x, pdf, "fit")
+    if nominal is not None:
+        ax.vline(nominal * scale, "nominal")
+    ax.path(f"M{ax.x0:.1f} {ax.y1:.1f}H{ax.x1:.1f}", "axis")
+    x, y = ax.x0 - 8, (ax.y0 + ax.y1) / 2
+    ax.text(x, y, "density", "tick", "middle", f' transform="rotate(-90 {x:.1f} {y:.1f})"')
+    items = _legend_items(nominal is not None, bool(shown), v.size)
+    if legend == "right":
+        ax.legend(items, ax.x1 + 14, ax.y0 + 8)
+    elif legend == "inside":
+        ax.legend(items[:2], ax.x0 + 8, ax.y0 + 24, 15)
     return ax
 
 
 def probability_plot(
-    data: pd.DataFrame | np.ndarray | Sequence[float],
-    ax: Axes | None = None,
+    data: Sequence[float] | np.ndarray,
+    ax: Canvas | None = None,
     *,
-    column: str | None = None,
     limits: Mapping | None = None,
     scale: float = 1.0,
     unit: str = "",
     title: str | None = "normal probability",
-    max_points: int = 1500,
-) -> Axes:
-    """Normal-probability plot (scipy.stats.probplot): ordered samples against normal quantiles [sigma].
+    max_points: int = 600,
+    desc: str = "",
+) -> Canvas:
+    """Normal-probability plot: ordered samples against normal quantiles [sigma], with the fitted normal's line.
 
-    A straight line means normal tails; bending at the ends shows where a normal extrapolation of yield would err.
-    Every point of the tails is drawn; the middle is thinned to about `max_points` for file size.
+    Positions are Filliben's order-statistic medians (as scipy.stats.probplot); a straight line means normal tails,
+    bending at the ends shows where a normal extrapolation of yield would err. Every point of the far tails is drawn,
+    the middle is thinned to about `max_points`.
     """
-    own = ax is None
+    v = np.sort(_values(data)) * scale
     if ax is None:
-        ax = new_axes(2.9, 2.5, (0.6, 0.1, 0.45, 0.3 if title else 0.12))
-    v = _values(data, column) * scale
-    if v.size < 3:
-        ax.text(0.5, 0.5, "too few samples", transform=ax.transAxes, ha="center", va="center")
+        chars = max(len(f"{t:g}") for t in nice_ticks(float(v[0]), float(v[-1]), 5)) if v.size >= 3 else 4
+        ax = new_axes(300, 250, (22 + CHAR * chars, 10, 42, 26 if title else 10))
+    ax.title = title or "normal probability plot"
+    ax.desc = desc
+    if title:
+        ax.heading(title)
+    n = v.size
+    if n < 3:
+        ax.text((ax.x0 + ax.x1) / 2, (ax.y0 + ax.y1) / 2, "too few samples", "label", "middle")
         return ax
-    (osm, osr), (slope, intercept, _r) = stats.probplot(v, dist="norm")
-    keep = _thin(osm.size, max_points)
-    limits_d = _scaled(limits, scale)
-    with style():
-        ax.plot(
-            osm[keep],
-            osr[keep],
-            linestyle="none",
-            marker="o",
-            markersize=2.2,
-            markerfacecolor=FILL,
-            markeredgecolor=INK,
-            markeredgewidth=0.4,
-            rasterized=keep.size > 600,
-            label="samples",
-        )
-        q = np.array([osm[0], osm[-1]])
-        fit = intercept + slope * q
-        ax.plot(q, fit, color=INK, linewidth=1.1, linestyle="--", label="normal")
-        lo, hi = float(min(osr[0], fit.min())), float(max(osr[-1], fit.max()))
-        shown = _limits_in_view(limits_d, lo, hi)
-        lo, hi = min([lo, *shown.values()]), max([hi, *shown.values()])
-        pad = 0.05 * (hi - lo or 1.0)
-        ax.set_ylim(lo - pad, hi + pad)
-        _shade_out_of_spec(ax, shown, vertical=False)
-        ax.set_xlabel("normal quantile [sigma]")
-        ax.set_ylabel(f"[{unit}]" if unit else "value")
-        ax.set_xticks(np.arange(np.ceil(osm[0]), np.floor(osm[-1]) + 1))
-        if title:
-            ax.set_title(label(title))
-        sns.despine(ax=ax)
-        if own:  # widen the left margin to the tick labels actually used
-            width = ax.figure.get_figwidth()
-            ax.figure.subplots_adjust(left=min((0.32 + CHAR * _tick_chars(ax)) / width, 0.5))
+    keep = _thin(n, max_points)
+    positions = (keep + 1 - 0.3175) / (n + 0.365)
+    positions[keep == 0], positions[keep == n - 1] = 1 - 0.5 ** (1 / n), 0.5 ** (1 / n)
+    normal = NormalDist()
+    osm = np.array([normal.inv_cdf(float(p)) for p in positions])
+    osr = v[keep]
+    mu, sd = float(v.mean()), float(v.std(ddof=1))
+    q = np.array([osm[0], osm[-1]])
+    fit = mu + sd * q
+    lo, hi = float(min(osr[0], fit.min())), float(max(osr[-1], fit.max()))
+    spec = _scaled(limits, scale)
+    shown = _in_view(spec, lo, hi)
+    lo, hi = min([lo, *shown.values()]), max([hi, *shown.values()])
+    pad = 0.05 * (hi - lo or 1.0)
+    ax.set_x(float(q[0]) - 0.2, float(q[1]) + 0.2)
+    ax.set_y(lo - pad, hi + pad)
+    ax.x_axis([float(k) for k in range(math.ceil(q[0]), math.floor(q[1]) + 1)], label="normal quantile [sigma]")
+    ax.y_axis(nice_ticks(lo - pad, hi + pad, 5), label=f"[{unit}]" if unit else "value")
+    for side, value in shown.items():
+        ax.hatch_y(ax.y.lo_data, value) if side == "min" else ax.hatch_y(value, ax.y.hi_data)
+        ax.hline(value, "limit")
+    ax.line(q, fit, "fit dashed")
+    px, py = ax.x(osm), ax.y(osr)
+    ax.path("".join(f"M{a:.1f} {b:.1f}h0" for a, b in zip(px, py, strict=True)), "dots")
+    ax.artists += 1
     return ax
 
 
-def _thin(n: int, max_points: int, tail: int = 150) -> np.ndarray:
+def _thin(n: int, max_points: int, tail: int = 100) -> np.ndarray:
     """Indices of sorted samples to draw: every point of both tails, an even subset of the middle."""
     if n <= max_points:
         return np.arange(n)
@@ -353,125 +208,143 @@ def _thin(n: int, max_points: int, tail: int = 150) -> np.ndarray:
 
 def area_sigma(
     area: Mapping,
-    ax: Axes | None = None,
+    ax: Canvas | None = None,
     *,
     measure: str,
     scale: float = 1.0,
     unit: str = "",
     title: str | None = None,
-) -> Axes:
+    desc: str = "",
+) -> Canvas:
     """Sigma of one measure against summed gate area, log-log, with the fit and the minimum-area point.
 
     area: summary["area"] ({points: [{area [m^2], measures: {name: {std}}}], fit: {name: {k, floor}},
     minimum: {name: {area, std}}}); the fit line is sigma = sqrt(k^2 / area + floor^2) (Pelgrom's law with a floor).
     """
     if ax is None:
-        ax = new_axes(6.2, 2.7, (0.75, 1.85, 0.45, 0.3 if title else 0.12))
+        ax = new_axes(620, 270, (64, 196, 42, 26 if title else 10))
+    ax.title = title or f"sigma of {measure} against gate area"
+    ax.desc = desc
+    if title:
+        ax.heading(title)
     points = [p for p in area.get("points", []) if measure in (p.get("measures") or {})]
     a = np.array([p.get("area", np.nan) for p in points], dtype=float) * 1e12
     s = np.array([p["measures"][measure].get("std") or np.nan for p in points], dtype=float) * scale
     ok = np.isfinite(a) & np.isfinite(s) & (a > 0) & (s > 0)
-    with style():
-        fit = (area.get("fit") or {}).get(measure) or {}
-        k, floor = fit.get("k"), fit.get("floor") or 0.0
-        if k is not None and ok.any():
-            x = np.geomspace(a[ok].min() / 1.6, a[ok].max() * 1.6, 100)
-            y = np.sqrt(float(k) ** 2 / (x * 1e-12) + float(floor) ** 2) * scale
-            ax.plot(x, y, color=INK, linewidth=1.2, label="fit \u221a(k\u00b2/area + floor\u00b2)", zorder=3)
-            if floor > 0:
-                ax.axhline(floor * scale, color=SLATE, linestyle="-.", linewidth=0.9, label="floor")
-        ax.plot(
-            a[ok],
-            s[ok],
-            linestyle="none",
-            marker="o",
-            markersize=5.5,
-            markerfacecolor=FILL,
-            markeredgecolor=INK,
-            markeredgewidth=0.9,
-            label="Monte Carlo",
-            zorder=4,
-        )
-        minimum = (area.get("minimum") or {}).get(measure) or {}
-        if minimum.get("area") and minimum.get("std"):
-            ax.plot(
-                [minimum["area"] * 1e12],
-                [minimum["std"] * scale],
-                linestyle="none",
-                marker="*",
-                markersize=14,
-                markerfacecolor=NOMINAL,
-                markeredgecolor=INK,
-                markeredgewidth=0.8,
-                label="minimum area for spec",
-                zorder=5,
-            )
-            ax.axvline(minimum["area"] * 1e12, color=NOMINAL, linestyle=":", linewidth=1.2, zorder=2)
-        ax.set_xscale("log")
-        ax.set_yscale("log")
-        for axis in (ax.xaxis, ax.yaxis):  # plain numbers (20, 50, 100), not powers of ten
-            axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-            axis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
-            axis.set_minor_formatter(NullFormatter())
-        ax.set_xlabel("gate area m\u00b7W\u00b7L of the scaled devices [\u00b5m\u00b2]")
-        ax.set_ylabel(f"sigma [{unit}]" if unit else "sigma")
-        ax.grid(True, which="major", linewidth=0.6)
-        ax.grid(True, which="minor", linewidth=0.3, color=GRID)
-        if title:
-            ax.set_title(label(title))
-        _legend_right(ax)
-        sns.despine(ax=ax)
+    if not ok.any():
+        ax.text((ax.x0 + ax.x1) / 2, (ax.y0 + ax.y1) / 2, "no swept point", "label", "middle")
+        return ax
+    fit = (area.get("fit") or {}).get(measure) or {}
+    k, floor = fit.get("k"), float(fit.get("floor") or 0.0)
+    minimum = (area.get("minimum") or {}).get(measure) or {}
+    xs = [*a[ok], *([minimum["area"] * 1e12] if minimum.get("area") else [])]
+    ys = [*s[ok], *([minimum["std"] * scale] if minimum.get("std") else [])]
+    x_lo, x_hi = min(xs) / 1.6, max(xs) * 1.6
+    curve_x = np.geomspace(x_lo, x_hi, 60)
+    curve_y = np.sqrt(float(k) ** 2 / (curve_x * 1e-12) + floor**2) * scale if k is not None else None
+    if curve_y is not None:
+        ys += [float(curve_y.min()), float(curve_y.max())]
+    y_lo, y_hi = min(ys) / 1.25, max(ys) * 1.25
+    ax.set_x(x_lo, x_hi, log=True)
+    ax.set_y(y_lo, y_hi, log=True)
+    ax.x_axis(
+        log_ticks(x_lo, x_hi), [f"{t:g}" for t in log_ticks(x_lo, x_hi)], "gate area m\u00b7W\u00b7L [\u00b5m\u00b2]"
+    )
+    ax.y_axis(log_ticks(y_lo, y_hi), [f"{t:g}" for t in log_ticks(y_lo, y_hi)], f"sigma [{unit}]" if unit else "sigma")
+    items: list[tuple[str, str, str]] = []
+    if curve_y is not None:
+        ax.line(curve_x, curve_y, "fit")
+        items.append(("line", "fit", "fit \u221a(k\u00b2/area + floor\u00b2)"))
+        if floor > 0 and y_lo < floor * scale < y_hi:
+            ax.hline(floor * scale, "floor")
+            items.append(("line", "floor", "floor"))
+    for x, y in zip(a[ok], s[ok], strict=True):
+        ax.marker(float(x), float(y), "o", 9, "mc")
+    items.append(("o", "mc", "Monte Carlo"))
+    if minimum.get("area") and minimum.get("std"):
+        ax.vline(minimum["area"] * 1e12, "nominal")
+        ax.marker(minimum["area"] * 1e12, minimum["std"] * scale, "*", 17, "minimum")
+        items.append(("*", "minimum", "minimum area for spec"))
+    ax.legend(items, ax.x1 + 14, ax.y0 + 8)
     return ax
+
+
+def fold_terms(terms: Sequence[Mapping], top: int = 10, min_share: float = MIN_SHARE) -> list[dict]:
+    """Terms by share, largest first; those beyond `top` or under `min_share` summed into one "others" entry.
+
+    The "others" entry carries count (terms folded), share (their summed share) and std (root-sum-square).
+    """
+    rows = sorted((dict(t) for t in terms), key=lambda t: -_num(t.get("share")))
+    kept = [t for i, t in enumerate(rows) if i < top and _num(t.get("share")) >= min_share]
+    rest = rows[len(kept) :]
+    if rest:
+        kept.append(
+            {
+                "device": f"others ({len(rest)} term{'s' if len(rest) > 1 else ''})",
+                "parameter": "other",
+                "share": sum(_num(t.get("share")) for t in rest),
+                "std": math.sqrt(sum(_num(t.get("std")) ** 2 for t in rest)),
+                "count": len(rest),
+            }
+        )
+    return kept
+
+
+def _num(v: object) -> float:
+    try:
+        f = float(v)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return 0.0
+    return f if math.isfinite(f) else 0.0
 
 
 def contributions(
-    terms: Sequence[Mapping] | pd.DataFrame, ax: Axes | None = None, *, top: int = 10, title: str | None = None
-) -> Axes:
+    terms: Sequence[Mapping], ax: Canvas | None = None, *, top: int = 10, title: str | None = None, desc: str = ""
+) -> Canvas:
     """Horizontal bars: each (device, parameter) term's share of the measure's variance [%], largest first.
 
-    terms: summary["contributions"][name]["terms"] ({device, parameter, share, ...}); terms beyond `top` are lumped.
+    terms: summary["contributions"][name]["terms"] ({device, parameter, share, ...}); folded by :func:`fold_terms`.
     """
-    df = pd.DataFrame(list(terms) if not isinstance(terms, pd.DataFrame) else terms)
-    if df.empty:
-        return ax if ax is not None else new_axes(5.0, 1.0)
-    df = df.assign(share=pd.to_numeric(df["share"], errors="coerce").fillna(0.0)).sort_values(
-        "share", ascending=False, kind="stable"
-    )
-    if len(df) > top:
-        rest = {"device": f"{len(df) - top} others", "parameter": "other", "share": float(df["share"].iloc[top:].sum())}
-        df = pd.concat([df.iloc[:top], pd.DataFrame([rest])], ignore_index=True)
-    names = [f"{label(d)} \u00b7 {label(p)}" for d, p in zip(df["device"], df["parameter"], strict=True)]
+    rows = fold_terms(terms, top)
+    names = [str(t["device"]) if "count" in t else f"{t.get('device')} \u00b7 {t.get('parameter')}" for t in rows]
     if ax is None:
-        left = min(0.25 + CHAR * max(len(n) for n in names), 2.0)
-        ax = new_axes(4.2, 0.75 + 0.24 * len(df) + (0.2 if title else 0.0), (left, 0.3, 0.45, 0.3 if title else 0.1))
-    with style():
-        for i, (share, parameter) in enumerate(zip(df["share"], df["parameter"], strict=True)):
-            color, hatch = PARAMETER_STYLE.get(str(parameter), PARAMETER_STYLE["other"])
-            with matplotlib.rc_context({"hatch.color": INK, "hatch.linewidth": 0.5}):
-                ax.barh(i, 100 * share, color=color, edgecolor=INK, linewidth=0.6, hatch=hatch, height=0.68)
-            ax.text(100 * share + 1.0, i, f"{100 * share:.1f} %", va="center", fontsize=7.5)
-        ax.set_yticks(np.arange(len(df)), names)
-        ax.set_ylim(len(df) - 0.5, -0.5)
-        ax.set_xlim(0, max(100 * float(df["share"].max()) * 1.2, 10))
-        ax.set_xlabel("share of the linearised variance [%]")
-        ax.grid(False, axis="y")
-        present = set(df["parameter"].astype(str))
-        with matplotlib.rc_context({"hatch.color": INK}):
-            handles = [
-                Patch(facecolor=c, edgecolor=INK, hatch=h, label=n)
-                for n, (c, h) in PARAMETER_STYLE.items()
-                if n in present
-            ]
-        ax.legend(handles=handles, loc="lower right", handleheight=1.4, handlelength=2.2)
-        if title:
-            ax.set_title(label(title))
-        sns.despine(ax=ax)
+        left = min(16 + CHAR * max((len(n) for n in names), default=4), 200)
+        ax = new_axes(440, 58 + 24 * len(rows) + (16 if title else 0), (left, 24, 40, 26 if title else 10))
+    ax.title = title or "variance shares"
+    ax.desc = desc
+    if title:
+        ax.heading(title)
+    if not rows:
+        return ax
+    biggest = max(100 * _num(t.get("share")) for t in rows)
+    ax.set_x(0.0, max(biggest * 1.22, 10.0))
+    ax.set_y(len(rows) - 0.4, -0.6)
+    ax.x_axis(nice_ticks(0.0, max(biggest * 1.22, 10.0), 5), label="share of the linearised variance [%]")
+    for i, (t, name) in enumerate(zip(rows, names, strict=True)):
+        share = 100 * _num(t.get("share"))
+        cls = PARAMETER_CLASS.get(str(t.get("parameter")), PARAMETER_CLASS["other"])
+        y, h = ax.y.px(i - 0.34), ax.y.px(i + 0.34) - ax.y.px(i - 0.34)
+        ax.rect_px(ax.x0, y, max(ax.x.px(share) - ax.x0, 0.5), h, cls)
+        ax.artists += 1
+        text = f"{share:.1f} %" if share >= 0.05 or share == 0 else "< 0.1 %"
+        ax.text(ax.x.px(share) + 4, ax.y.px(i) + 4, text, "tick")
+        ax.text(ax.x0 - 6, ax.y.px(i) + 4, name, "tick", "end")
+    ax.path(f"M{ax.x0:.1f} {ax.y0:.1f}V{ax.y1:.1f}", "axis")
     return ax
+
+
+def corner_rows(corners: Sequence[Mapping], measure: str, worst: int | None, max_rows: int) -> list[int]:
+    """Indices of the corners drawn: all of them up to `max_rows`, else the first ones and the worst."""
+    idx = [i for i, c in enumerate(corners) if measure in (c.get("measures") or {})]
+    if len(idx) <= max_rows:
+        return idx
+    shown = idx[: max_rows - 1] if worst is not None and worst not in idx[:max_rows] else idx[:max_rows]
+    return sorted({*shown, *([worst] if worst in idx else [])})
 
 
 def corner_spread(
     corners: Sequence[Mapping],
-    ax: Axes | None = None,
+    ax: Canvas | None = None,
     *,
     measure: str,
     limits: Mapping | None = None,
@@ -479,64 +352,73 @@ def corner_spread(
     scale: float = 1.0,
     unit: str = "",
     title: str | None = None,
-) -> Axes:
+    max_rows: int = 120,
+    desc: str = "",
+) -> Canvas:
     """Mean and mean +- 3 sigma of one measure at every corner, one row each, with the spec and the worst corner.
 
     corners: summary["corners"] ({process, temperature [K], supply [V], measures: {name: {mean, std}}});
-    worst: index into `corners` of the worst corner, drawn thick with a diamond.
+    worst: index into `corners` of the worst corner, drawn thick with a diamond; at most `max_rows` rows (the worst
+    always among them).
     """
-    rows = [(i, c) for i, c in enumerate(corners) if measure in (c.get("measures") or {})]
-    labels = [
-        f"{str(c.get('process', '?')):>4} {_celsius(c.get('temperature'))} {_volts(c.get('supply'))}" for _, c in rows
-    ]
+    idx = corner_rows(corners, measure, worst, max_rows)
+    labels = [_corner_text(corners[i]) for i in idx]
     if ax is None:
-        left = 0.3 + 0.062 * max((len(t) for t in labels), default=8)
-        ax = new_axes(7.0, 0.75 + 0.125 * len(rows) + (0.2 if title else 0.0), (left, 0.2, 0.45, 0.3 if title else 0.1))
-    limits_d = _scaled(limits, scale)
-    lo, hi = np.inf, -np.inf
-    with style():
-        for y, (i, c) in enumerate(rows):
-            m = c["measures"][measure]
-            mu, sd = m.get("mean"), m.get("std") or 0.0
-            if mu is None:
-                continue
-            a, b = (mu - 3 * sd) * scale, (mu + 3 * sd) * scale
-            lo, hi = min(lo, a), max(hi, b)
-            bad = i == worst
-            ax.plot([a, b], [y, y], color=LIMIT if bad else SLATE, linewidth=2.6 if bad else 1.1, solid_capstyle="butt")
-            ax.plot(
-                [mu * scale],
-                [y],
-                linestyle="none",
-                marker="D" if bad else "o",
-                markersize=5.5 if bad else 3.5,
-                markerfacecolor=LIMIT if bad else FILL,
-                markeredgecolor=INK,
-                markeredgewidth=0.6,
+        left = 16 + 0.62 * 11 * max((len(t) for t in labels), default=8)
+        ax = new_axes(560, 62 + 13 * len(idx) + (16 if title else 0), (left, 14, 42, 26 if title else 10))
+    ax.title = title or f"corner spread of {measure}"
+    ax.desc = desc
+    if title:
+        ax.heading(title)
+    spans = []
+    for i in idx:
+        m = corners[i]["measures"][measure]
+        if m.get("mean") is not None:
+            sd = m.get("std") or 0.0
+            spans.append(((m["mean"] - 3 * sd) * scale, m["mean"] * scale, (m["mean"] + 3 * sd) * scale))
+    if not spans:
+        return ax
+    lo, hi = min(s[0] for s in spans), max(s[2] for s in spans)
+    spec = _scaled(limits, scale)
+    shown = _in_view(spec, lo, hi)
+    lo, hi = min([lo, *shown.values()]), max([hi, *shown.values()])
+    pad = 0.03 * (hi - lo or 1.0)
+    ax.set_x(lo - pad, hi + pad)
+    ax.set_y(len(idx) - 0.5, -0.5)
+    ax.x_axis(nice_ticks(lo - pad, hi + pad, 7), label=f"{measure}: mean \u00b1 3 sigma [{unit}]" if unit else measure)
+    _spec_x(ax, spec, shown, unit)
+    plain, bad = [], []
+    for row, i in enumerate(idx):
+        m = corners[i]["measures"][measure]
+        if m.get("mean") is None:
+            continue
+        sd = m.get("std") or 0.0
+        a, b = ax.x.px((m["mean"] - 3 * sd) * scale), ax.x.px((m["mean"] + 3 * sd) * scale)
+        y = ax.y.px(row)
+        (bad if i == worst else plain).append(f"M{a:.1f} {y:.1f}H{b:.1f}")
+        ax.text(ax.x0 - 6, y + 3.5, labels[row], "mono", "end")
+        if row and corners[idx[row - 1]].get("process") != corners[i].get("process"):
+            ax.hline(row - 0.5, "rule")
+    ax.path("".join(plain), "spread")
+    ax.path("".join(bad), "spread worst")
+    ax.artists += 1
+    for row, i in enumerate(idx):
+        m = corners[i]["measures"][measure]
+        if m.get("mean") is not None:
+            ax.marker(
+                m["mean"] * scale,
+                row,
+                "D" if i == worst else "o",
+                8 if i == worst else 5,
+                "worst" if i == worst else "mc",
             )
-        for y in range(1, len(rows)):  # a rule between process corners
-            if rows[y][1].get("process") != rows[y - 1][1].get("process"):
-                ax.axhline(y - 0.5, color=SLATE, linewidth=0.5, zorder=1)
-        ax.set_yticks(np.arange(len(rows)), [label(t) for t in labels], fontsize=6.5, family="DejaVu Sans Mono")
-        ax.set_ylim(len(rows) - 0.5, -0.5)
-        if np.isfinite(lo):
-            shown = _limits_in_view(limits_d, lo, hi)
-            lo, hi = min([lo, *shown.values()]), max([hi, *shown.values()])
-            ax.set_xlim(lo - 0.03 * (hi - lo or 1.0), hi + 0.03 * (hi - lo or 1.0))
-            _shade_out_of_spec(ax, shown)
-            _far_limits(ax, limits_d, shown, unit)
-        text = f"{label(measure)}: mean \u00b1 3 sigma"
-        ax.set_xlabel(f"{text} [{unit}]" if unit else text)
-        ax.grid(False, axis="y")
-        if title:
-            ax.set_title(label(title))
-        sns.despine(ax=ax)
+    ax.path(f"M{ax.x0:.1f} {ax.y0:.1f}V{ax.y1:.1f}", "axis")
     return ax
 
 
-def _celsius(kelvin: float | None) -> str:
-    return "" if kelvin is None else f"{kelvin - 273.15:4.0f}\u00b0C"
-
-
-def _volts(volts: float | None) -> str:
-    return "" if volts is None else f"{volts:5.3g} V"
+def _corner_text(c: Mapping) -> str:
+    t = c.get("temperature")
+    v = c.get("supply")
+    temp = "" if t is None else f"{t - 273.15:4.0f} \u00b0C"
+    volts = "" if v is None else f"{v:5.3g} V"
+    return " ".join(x for x in (f"{c.get('process', '?')!s:>3}", temp, volts) if x)

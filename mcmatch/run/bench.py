@@ -1,11 +1,11 @@
 """Speed check: the batched engine against per-sample ``scipy.optimize.root`` loops on the same samples.
 
 Two references solve one sample at a time with scipy's hybrid method and analytic Jacobians, from the nominal point
-(:mod:`mcmatch.run.reference`): the residual a designer would write for that one circuit (the unknown node voltages,
-KCL with the square law; the headline speed-up), and the engine's general MNA residual (every node voltage and source
-current unknown; a second column). Both must agree with the engine to TOLERANCE (DESIGN.md section 4). The references
-run on a subset of the samples and their per-sample cost is extrapolated; the engine runs all of them, warm (one
-untimed pass first), with sampling and the small-signal resistance included. Optionally, the end-to-end latency of
+(:mod:`mcmatch.run.bench_reference`): the residual a designer would write for that one circuit (the unknown node
+voltages, KCL with the square law; the headline speed-up), and the engine's general MNA residual (every node voltage and
+source current unknown; a second column). Both must agree with the engine to TOLERANCE (DESIGN.md section 4). The
+references run on a subset of the samples and their per-sample cost is extrapolated; the engine runs all of them, warm
+(one untimed pass first), with sampling and the small-signal resistance included. Optionally, the end-to-end latency of
 fresh processes: ``mcmatch --version`` and a whole demo run. The circuits are explicit netlists on a bundled, invented
 technology: illustrative values, no foundry's data.
 
@@ -26,7 +26,7 @@ if TYPE_CHECKING:
     import numpy as np
 
     from mcmatch.config.schema import Config
-    from mcmatch.run.engine import Study
+    from mcmatch.run.study import Study
 
 #: Illustrative 180 nm-class technology, INVENTED VALUES (same spirit as configs/technologies/demo180.toml).
 TECHNOLOGY: dict = {
@@ -128,7 +128,7 @@ def _netlist(circuit: str, kind: str) -> tuple[dict, dict]:
 
 def bench_config(circuit: str = "simple", kind: str = "nmos", samples: int = 1_000_000, seed: int = 1) -> Config:
     """The validated config of a bench circuit ("simple", "cascode", "bank") in polarity `kind`."""
-    from mcmatch.config.schema import config_from_dict
+    from mcmatch.config.loading import config_from_dict
 
     if kind not in POLARITIES:
         raise ValueError(f"unknown polarity {kind!r}; expected nmos or pmos")
@@ -160,7 +160,7 @@ def reference_run(study: Study, start: int, stop: int) -> tuple[np.ndarray, dict
     """
     import numpy as np
 
-    from mcmatch.run.reference import mna_measures
+    from mcmatch.run.bench_reference import mna_measures
 
     _, _, vth, beta = engine_draws(study, start, stop)
     n = stop - start
@@ -180,7 +180,7 @@ def designer_run(
     """Samples start..stop by the hand-written residual of the bench circuit: measures {name: (S,)}, converged (S,)."""
     import numpy as np
 
-    from mcmatch.run.reference import designer_reference
+    from mcmatch.run.bench_reference import designer_reference
 
     _, _, vth, beta = engine_draws(study, start, stop)
     solve = designer_reference(study, circuit, kind).solve
@@ -219,7 +219,8 @@ def _measure_difference(study: Study, engine: dict, reference: dict, both: np.nd
 def agreement(study: Study, samples: int) -> tuple[float, int, float]:
     """Engine versus the MNA reference on samples 0..samples: (max relative difference, reference failures,
     reference time [s]). Compared: every MNA unknown (node voltages, source currents) and every measure."""
-    from mcmatch.run.engine import run_chunk, solve_unknowns
+    from mcmatch.run.chunks import run_chunk
+    from mcmatch.run.study import solve_unknowns
 
     started = time.perf_counter()
     x_ref, m_ref, ok = reference_run(study, 0, samples)
@@ -236,7 +237,7 @@ def agreement(study: Study, samples: int) -> tuple[float, int, float]:
 def designer_agreement(study: Study, circuit: str, kind: str, samples: int) -> tuple[float, int, float]:
     """Engine versus the hand-written reference on samples 0..samples: (max relative difference over every measure,
     reference failures, reference time [s])."""
-    from mcmatch.run.engine import run_chunk
+    from mcmatch.run.chunks import run_chunk
 
     started = time.perf_counter()
     m_ref, ok = designer_run(study, circuit, kind, 0, samples)
@@ -249,7 +250,7 @@ def designer_agreement(study: Study, circuit: str, kind: str, samples: int) -> t
 
 def time_engine(study: Study, samples: int, repeats: int = 1) -> tuple[float, int]:
     """Best wall time [s] of solving `samples` samples in-process, chunk by chunk as a run does; failed solves."""
-    from mcmatch.run.engine import chunk_ranges, run_chunk
+    from mcmatch.run.chunks import chunk_ranges, run_chunk
 
     ranges = chunk_ranges(samples, 1)
     best, failed = float("inf"), 0
@@ -378,7 +379,8 @@ def run_bench(
 ) -> BenchResult:
     """Warm engine run of `samples` samples, both scipy references on the first `reference_samples` of them, and
     (latency_runs > 0) the end-to-end latency of that many fresh processes of each kind."""
-    from mcmatch.run.engine import prepare, run_chunk
+    from mcmatch.run.chunks import run_chunk
+    from mcmatch.run.study import prepare
 
     config = bench_config(circuit, polarity, samples, seed)
     study = prepare(config)

@@ -15,8 +15,9 @@ from dataclasses import replace
 import numpy as np
 
 from mcmatch.model.circuit import Circuit, voltage_mask
-from mcmatch.run.engine import Study, supply_band, system_for
+from mcmatch.run.study import Study
 from mcmatch.solve.newton import SOLVER_DEFAULTS, newton
+from mcmatch.solve.reference import supply_band, system_for
 
 #: Node voltage difference [V] beyond which two converged solutions are different operating points.
 DISTINCT = 0.01

@@ -1,4 +1,5 @@
-"""Process x temperature x supply corners: the grid, one table row per grid point, and the worst point per measure.
+"""Process x temperature x supply corners: the grid, one table row per grid point, and the worst point per measure
+(the smallest spec margin in sigma, :mod:`mcmatch.stats.margins`).
 
 Tables in, dicts out (SI units); the solves happen in :mod:`mcmatch.studies.analyses`.
 """
@@ -6,15 +7,21 @@ Tables in, dicts out (SI units); the solves happen in :mod:`mcmatch.studies.anal
 from __future__ import annotations
 
 import itertools
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from mcmatch.config.schema import Config, Limits
 from mcmatch.stats.describe import describe
+from mcmatch.stats.margins import TIE_SIGMAS, group_label, margin_error, spec_margin, within_error
 from mcmatch.stats.yields import passes, yield_block
 
-CRITERION_YIELD = "lowest spec yield (ties: largest |mean - nominal| + 3 std)"
+CRITERION_YIELD = "lowest spec yield (ties: largest |mean - nominal| + 3 std)"  # the criterion before margins
+CRITERION_MARGIN = (
+    f"smallest spec margin min((max - mean) / std, (mean - min) / std) [sigma]; corners within {TIE_SIGMAS:g} "
+    "combined standard errors of it are reported together"
+)
 CRITERION_SPREAD = "largest |mean - main nominal| + 3 std"
 
 
@@ -114,35 +121,69 @@ def spread(entry_measure: dict, main_nominal: float | None) -> float | None:
 
 
 def worst_corners(entries: list[dict], main_measures: dict, specs: dict[str, Limits]) -> dict:
-    """The worst grid point per measure: lowest per-spec yield for measures with a spec, else the largest spread.
+    """The worst grid point per measure: the smallest spec margin in sigma for measures with a spec
+    (:mod:`mcmatch.stats.margins`), else the largest spread; grid points with an error are skipped.
 
-    main_measures: summary["measures"] (uses each measure's main nominal). Grid points with an error are skipped.
+    For a spec'd measure, `value` is that margin [sigma]; `tied` lists every corner within sampling error of it
+    (TIE_SIGMAS combined standard errors), `label` names them together. main_measures: summary["measures"] (each
+    measure's main nominal, for the spread).
     """
     out: dict[str, dict] = {}
     ok_entries = [e for e in entries if "error" not in e]
+    grid = [point_keys_of(e) for e in ok_entries]
     for name, stats in main_measures.items():
         nominal = stats.get("nominal")
-        best_key = None
-        best = None
+        if name in specs:
+            worst = _worst_margin(ok_entries, grid, name, specs[name], nominal)
+            if worst is not None:
+                out[name] = worst
+            continue
+        best_key, best = None, None
         for e in ok_entries:
             s = spread(e["measures"].get(name, {}), nominal)
-            s_key = -np.inf if s is None else s
-            if name in specs:
-                y = e["yield"]["specs"][name]["fraction"]
-                key = (-(y if y is not None else 0.0), s_key)
-            else:
-                key = (s_key,)
+            key = -np.inf if s is None else s
             if best_key is None or key > best_key:
-                best_key, best = key, (e, y if name in specs else s)
+                best_key, best = key, e
         if best is None:
             continue
-        entry, value = best
-        out[name] = {
-            "process": entry["process"],
-            "temperature": entry["temperature"],
-            "supply": entry["supply"],
-            "value": value,
-            "criterion": CRITERION_YIELD if name in specs else CRITERION_SPREAD,
-            "spread": spread(entry["measures"].get(name, {}), nominal),
-        }
+        s = spread(best["measures"].get(name, {}), nominal)
+        out[name] = {**point_keys_of(best), "value": s, "criterion": CRITERION_SPREAD, "spread": s}
     return out
+
+
+def point_keys_of(entry: dict) -> dict:
+    return {"process": entry["process"], "temperature": entry["temperature"], "supply": entry["supply"]}
+
+
+def _finite(value: float | None) -> float | None:
+    return value if value is not None and math.isfinite(value) else None
+
+
+def _worst_margin(entries: list[dict], grid: list[dict], name: str, limits: Limits, nominal: float | None):
+    rows = []
+    for e in entries:
+        m = e["measures"].get(name, {})
+        margin, limit = spec_margin(m.get("mean"), m.get("std"), limits)
+        if margin is None:
+            continue
+        n = int(e.get("samples", 0)) - int(e.get("failed_solves", 0))
+        rows.append((margin, margin_error(margin, n), limit, e))
+    if not rows:
+        return None
+    margin, error, limit, entry = min(rows, key=lambda r: r[0])
+    tied = [r for r in rows if within_error(r[0], r[1], margin, error)]
+    m = entry["measures"][name]
+    return {
+        **point_keys_of(entry),
+        "value": _finite(margin),
+        "criterion": CRITERION_MARGIN,
+        "spread": spread(m, nominal),
+        "margin_sigma": _finite(margin),
+        "margin_error": _finite(error),
+        "limit": limit,
+        "mean": m.get("mean"),
+        "std": m.get("std"),
+        "spec_yield": ((entry.get("yield") or {}).get("specs") or {}).get(name, {}).get("fraction"),
+        "tied": [{**point_keys_of(r[3]), "margin_sigma": _finite(r[0])} for r in tied],
+        "label": group_label([point_keys_of(r[3]) for r in tied], grid),
+    }

@@ -25,6 +25,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from mcmatch.config.schema import Limits
+from mcmatch.stats.compliance import out_of_saturation_count
 from mcmatch.stats.describe import QUANTILES, quantile_key
 from mcmatch.stats.yields import passes
 
@@ -366,11 +367,12 @@ class ChunkPartial:
     replicate_moments: dict[str, tuple[np.ndarray, ...]] = field(default_factory=dict)
     replicate_passed: np.ndarray | None = None  # joint passes per group (replicates,)
     replicate_total: np.ndarray | None = None  # samples per group (replicates,)
+    out_of_saturation: int = 0  # samples with any device below zero headroom (stats/compliance.py)
 
 
 @dataclass(frozen=True)
 class ChunkReducer:
-    """Picklable: turns one chunk's columns (engine.run_chunk) into a ChunkPartial, in the worker that solved it.
+    """Picklable: turns one chunk's columns (run.chunks.run_chunk) into a ChunkPartial, in the worker that solved it.
 
     measures: measure names; specs: {measure: Limits}; keep: rows with sample index < keep are returned whole;
     grids: {measure: Grid} for the quantile histograms (None: no histogram, quantiles come from kept rows);
@@ -428,6 +430,7 @@ class ChunkReducer:
             replicate_moments=rep_moments,
             replicate_passed=rep_passed,
             replicate_total=rep_total,
+            out_of_saturation=out_of_saturation_count(columns),
         )
 
 
@@ -444,6 +447,7 @@ class RunAccumulator:
         self.histograms = {m: Histogram(g) for m, g in (reducer.grids or {}).items()}
         self.spec_passed = {name: 0 for name in reducer.specs}
         self.joint_passed = 0
+        self.out_of_saturation = 0
         self.failed_examples: list[dict] = []
         self.kept: list[dict[str, np.ndarray]] = []
         rr = max(1, int(reducer.replicates))
@@ -465,6 +469,7 @@ class RunAccumulator:
         for name, n in part.spec_passed.items():
             self.spec_passed[name] += n
         self.joint_passed += part.joint_passed
+        self.out_of_saturation += part.out_of_saturation
         room = FAILED_EXAMPLES - len(self.failed_examples)
         if room > 0:
             self.failed_examples.extend(part.failed_examples[:room])

@@ -1,7 +1,7 @@
 """The analyses beyond the main Monte Carlo run: yield extras, corners, area versus accuracy, mismatch contributions.
 
 :func:`run_analyses` works from the main run's summary (measure statistics, yield counts) and its own solves; it
-never reads the main run's sample rows. Each study below solves its conditions through :mod:`mcmatch.run.engine` and
+never reads the main run's sample rows. Each study below solves its conditions through :mod:`mcmatch.run` and
 hands the tables to the matching :mod:`mcmatch.analysis` module.
 """
 
@@ -13,8 +13,10 @@ import numpy as np
 
 from mcmatch.config.schema import Config
 from mcmatch.errors import SolveError
+from mcmatch.model.operating_point import device_operating_points
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
-from mcmatch.run.engine import POOL_THRESHOLD, Study, monte_carlo, nominal_measures, prepare
+from mcmatch.run.chunks import POOL_THRESHOLD, monte_carlo
+from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.area import (
     SEARCH_SPAN,
     fit_sigma,
@@ -24,6 +26,7 @@ from mcmatch.stats.area import (
     minimum_area,
     scaled_netlist,
 )
+from mcmatch.stats.compliance import compliance_of_columns
 from mcmatch.stats.contributions import contribution_table
 from mcmatch.stats.corners import corner_entry, corner_grid, error_entry, worst_corners
 from mcmatch.stats.describe import describe
@@ -73,6 +76,7 @@ def run_corners(config: Config, summary: dict, options: Options | None = None) -
         guess = study.x_nominal
         columns = _mc(study, samples, options)
         entries.append(corner_entry(point, nominal_measures(study), columns, config.specs))
+        entries[-1]["compliance"] = compliance_of_columns(device_operating_points(study.circuit, guess), columns)
     return entries, worst_corners(entries, summary["measures"], config.specs)
 
 
@@ -234,4 +238,8 @@ def run_analyses(config: Config, study: Study, summary: dict, options: Any = Non
         out["area"] = run_area(config, options)
     if config.analysis.contributions:
         out["contributions"] = run_contributions(study, summary)
+    if config.analysis.sizing is not None:
+        from mcmatch.studies.sizing import run_sizing  # it builds on this module's Monte Carlo helper
+
+        out["sizing"] = run_sizing(config, options)
     return out

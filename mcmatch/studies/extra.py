@@ -3,7 +3,7 @@
 :func:`run_extra_analyses` adds the summary keys ``placements`` and ``placement_best`` (when the config has a
 ``[placement]`` table), ``high_sigma`` (with ``[analysis.high_sigma]`` and specs) and ``bank`` (with
 ``[analysis.bank]``, or when two or more spec'd ratio measures share one reference). Each study makes its own solves
-through :mod:`mcmatch.run.engine` and never reads the main run's sample rows; the arithmetic lives in
+through :mod:`mcmatch.run.study` and never reads the main run's sample rows; the arithmetic lives in
 :mod:`mcmatch.draws.placement`, :mod:`mcmatch.stats.high_sigma` and :mod:`mcmatch.stats.bank`.
 """
 
@@ -26,9 +26,10 @@ from mcmatch.draws.placement import (
     pick_best,
     shift_arrays,
 )
+from mcmatch.draws.process import deviations_from_normals, normal_dims, normal_gradient, with_process
 from mcmatch.errors import SolveError
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_sigmas
-from mcmatch.run.engine import Study, nominal_measures, nominal_point, solve_samples
+from mcmatch.run.study import Study, nominal_measures, nominal_point, solve_samples
 from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.bank import bank_yield, channel_passes, mean_correlation
 from mcmatch.stats.describe import describe
@@ -71,6 +72,7 @@ def _placement_mc(
         stop = min(samples, start + BLOCK)
         z = standard_normals(study.seed, start, stop, 2 * params.count, study.stream, study.sampling)
         dvth, dbeta = mismatch_from_normals(params, z)
+        dvth, dbeta = with_process(study.variation, study.seed, start, dvth, dbeta, study.stream, study.sampling)
         g = standard_normals(study.seed, start, stop, 4, PLACEMENT_STREAM)
         extra_vth, extra_beta = distance_terms(centroids, placed, g, s_vt, s_beta)
         parts.append(solve_samples(study, dvth + extra_vth, dbeta + extra_beta))
@@ -152,7 +154,7 @@ def _evaluator(study: Study, name: str) -> hs.Evaluate:
     def evaluate(z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         values, converged = [], []
         for start in range(0, len(z), BLOCK):
-            dvth, dbeta = mismatch_from_normals(params, z[start : start + BLOCK])
+            dvth, dbeta = deviations_from_normals(params, study.variation, z[start : start + BLOCK])
             out = solve_samples(one, dvth, dbeta)
             values.append(out[name])
             converged.append(out["converged"])
@@ -165,7 +167,7 @@ def high_sigma_measure(study: Study, name: str, limits, samples: int, gradient: 
     """Importance-sampling estimate of the failure probability of one spec'd measure (both sides together)."""
     evaluate = _evaluator(study, name)
     nominal = nominal_measures(replace(study, measures={name: study.measures[name]}))[name]
-    dims = 2 * study.circuit.params.count
+    dims = normal_dims(study.circuit.params.count, study.variation)
     notes = []
     sides = []
     for side in ("min", "max"):
@@ -240,7 +242,7 @@ def run_high_sigma(config: Config, study: Study) -> dict:
     out = {}
     for name in names:
         g = gradients.get(name)
-        gradient_z = None if g is None else np.asarray(g, dtype=float) * sigmas
+        gradient_z = None if g is None else normal_gradient(g, sigmas, study.variation)
         out[name] = high_sigma_measure(study, name, config.specs[name], spec.samples, gradient_z)
     return out
 

@@ -13,19 +13,14 @@ import pandas as pd
 
 from mcmatch import __version__
 from mcmatch.config.schema import Config
-from mcmatch.draws.mismatch import SOBOL_SCRAMBLINGS
+from mcmatch.draws.mismatch import BLOCK, SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
+from mcmatch.results.summary import finish_summary
 from mcmatch.results.tables import to_frame
-from mcmatch.run.engine import (
-    BLOCK,
-    CHUNK_QUANTUM,
-    Study,
-    nominal_measures,
-    prepare,
-    resolve_jobs,
-    run_chunk,
-    stream_chunks,
-)
+from mcmatch.run.chunks import CHUNK_QUANTUM, resolve_jobs, run_chunk, stream_chunks
+from mcmatch.run.loads import resolve_loads
+from mcmatch.run.study import Study, nominal_measures, prepare
+from mcmatch.stats.compliance import compliance_block
 from mcmatch.stats.describe import describe
 from mcmatch.stats.streaming import (
     HISTOGRAM_BINS,
@@ -50,7 +45,7 @@ class RunOptions:
     backend: str | None = None
     progress: Callable[[int], None] | None = None
     keep_samples: int | None = None  # rows kept for the table; None: config analysis.keep_samples
-    chunk_size: int | None = None  # samples per chunk (rounded to engine.CHUNK_QUANTUM); None: engine's choice
+    chunk_size: int | None = None  # samples per chunk (rounded to chunks.CHUNK_QUANTUM); None: chunks' choice
 
 
 @dataclass
@@ -149,6 +144,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     """Nominal solve and Monte Carlo of the config's main condition, with summary statistics and yield."""
     options = options or RunOptions()
     started = time.perf_counter()
+    config = resolve_loads(config)  # the summary and every analysis see the sized load currents
     study = prepare(config)
     nominal = nominal_measures(study)
     samples = config.analysis.samples
@@ -193,6 +189,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
             "machine": f"{platform.system()} {platform.machine()}, {platform.node()}",
         },
     }
+    summary["compliance"] = compliance_block(summary["operating_point"], stats.out_of_saturation, stats.samples)
     # analyses (corners, area, contributions, yield extras) work from the summary, never from raw main-run rows
     from mcmatch.studies.analyses import run_analyses  # local: keeps this hook a one-place edit
 
@@ -200,6 +197,10 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     from mcmatch.studies.extra import run_extra_analyses  # placements, high-sigma yield, bank yield
 
     summary.update(run_extra_analyses(config, study, summary, options))
+    from mcmatch.studies.variation import run_variation  # local and global parts of the spread (variation mode)
+
+    summary.update(run_variation(config, study, summary))
     table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
+    summary = finish_summary(summary)  # schema_version added; checked against results.summary.Summary
     return RunResult(summary=summary, table=table, study=study)

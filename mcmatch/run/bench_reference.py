@@ -22,8 +22,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from mcmatch.model.circuit import GMIN, evaluate_measures, residual_jacobian
-from mcmatch.run.engine import Study
+from mcmatch.model.circuit import GMIN, residual_jacobian
+from mcmatch.run.study import Study
+from mcmatch.solve.measures import mna_measures as measures_at
 
 #: Options of scipy.optimize.root (hybrid method) for both references.
 ROOT_OPTIONS = {"xtol": 1e-14}
@@ -48,7 +49,7 @@ def mna_solve(study: Study, vth: np.ndarray, beta: np.ndarray) -> tuple[np.ndarr
 def mna_measures(study: Study, vth: np.ndarray, beta: np.ndarray) -> tuple[np.ndarray, dict[str, float], bool]:
     """:func:`mna_solve` and every measure at its solution: (unknowns (n,), {measure: value} [SI], converged)."""
     x, ok = mna_solve(study, vth, beta)
-    values = evaluate_measures(study.circuit, study.measures, x[None, :], vth[None, :], beta[None, :])
+    values = measures_at(study.circuit, study.measures, x[None, :], vth[None, :], beta[None, :])
     return x, {key: float(v[0]) for key, v in values.items()}, ok
 
 

@@ -1,0 +1,31 @@
+"""The jinja2 template of the report, with autoescape on, and its inlined stylesheet (package data)."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from importlib import resources
+
+from jinja2 import Environment, PackageLoader, StrictUndefined
+from markupsafe import Markup
+
+
+@lru_cache(maxsize=1)
+def environment() -> Environment:
+    env = Environment(
+        loader=PackageLoader("mcmatch.report", "assets"),
+        autoescape=True,  # every user string (title, names, notes, config text) is escaped
+        undefined=StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    return env
+
+
+@lru_cache(maxsize=1)
+def _css() -> str:
+    return resources.files("mcmatch.report").joinpath("assets/style.css").read_text(encoding="utf-8")
+
+
+def render(context: dict) -> str:
+    """The report's HTML from a context of display strings, tables and Markup figures (see render.build_context)."""
+    return environment().get_template("report.html.j2").render(**context, css=Markup(_css()))
