@@ -1,6 +1,6 @@
 """Property tests of the one device model (mcmatch.model.square_law, mcmatch.model.ekv via mcmatch.model.devices).
 
-Every path reaches the same equations: the fast reduced system (circuit.device_state: sample axis last, fixed
+Every path reaches the same equations: the fast reduced system (reduced.device_state: sample axis last, fixed
 terminals as floats, only the derivatives a Jacobian needs, batch-wide region shortcuts) and the reference MNA system
 (circuit.mosfet_currents: sample axis first, all derivatives). Hypothesis draws points region by region (cutoff,
 triode, saturation; weak, moderate, strong inversion), both drain/source orientations, with and without body effect
@@ -27,14 +27,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from mcmatch.config.schema import Netlist
-from mcmatch.model.circuit import (
-    compile_circuit,
-    device_state,
-    extend,
-    mosfet_currents,
-    reduce_circuit,
-    reduce_unknowns,
-)
+from mcmatch.model.circuit import compile_circuit, extend, mosfet_currents
 from mcmatch.model.devices import (
     EKV,
     REGIONS,
@@ -44,6 +37,7 @@ from mcmatch.model.devices import (
     mosfet_state,
     thermal_voltage,
 )
+from mcmatch.model.reduced import device_state, reduce_circuit, reduce_unknowns
 from mcmatch.model.technology import DeviceParameters
 
 MARGIN = 1e-3  # [V] every drawn point lies this far from a region edge, so a difference stencil stays in one region

@@ -14,8 +14,9 @@ from collections.abc import Callable
 import numpy as np
 
 from mcmatch.config.schema import RESERVED_COLUMNS
-from mcmatch.model.circuit import Circuit, ReducedCircuit
+from mcmatch.model.circuit import Circuit
 from mcmatch.model.devices import ekv, ekv_inversion_coefficient, square_law_threshold
+from mcmatch.model.reduced import ReducedCircuit
 from mcmatch.model.technology import EKV
 
 #: Column of the per-sample smallest headroom [V] in the engine's sample tables (a reserved name, config/schema.py).

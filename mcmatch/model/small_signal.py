@@ -14,7 +14,8 @@ import contextlib
 
 import numpy as np
 
-from mcmatch.model.circuit import Circuit, ReducedCircuit
+from mcmatch.model.circuit import Circuit
+from mcmatch.model.reduced import ReducedCircuit
 
 
 def branch_unknown(circuit: Circuit, source: str) -> int:

@@ -13,8 +13,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from mcmatch.config.schema import Measure
-from mcmatch.model.circuit import DERIVATIVES, Circuit, DeviceState, device_state, reduced_residual_jacobian
+from mcmatch.model.circuit import Circuit
+from mcmatch.model.devices import DeviceState
 from mcmatch.model.headroom import HEADROOM_COLUMN, min_headroom, reduced_terminal
+from mcmatch.model.reduced import DERIVATIVES, device_state, reduced_residual_jacobian
 from mcmatch.solve.measures import ReducedPoint, evaluate_measures, grounded_source_currents
 from mcmatch.solve.newton import ColumnSystem, newton_columns
 from mcmatch.solve.plan import Block, FastPlan

@@ -15,17 +15,9 @@ from typing import Protocol
 import numpy as np
 
 from mcmatch.config.schema import Measure
-from mcmatch.model.circuit import (
-    GMIN,
-    Circuit,
-    DeviceState,
-    ReducedCircuit,
-    device_state,
-    extend,
-    mosfet_currents,
-    reduced_residual_jacobian,
-    residual_jacobian,
-)
+from mcmatch.model.circuit import GMIN, Circuit, extend, mosfet_currents, residual_jacobian
+from mcmatch.model.devices import DeviceState
+from mcmatch.model.reduced import ReducedCircuit, device_state, reduced_residual_jacobian
 from mcmatch.model.small_signal import port_resistance
 from mcmatch.solve.plan import FastPlan
 from mcmatch.solve.ports import reduced_port_resistances

@@ -12,8 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from mcmatch.config.schema import Measure
-from mcmatch.model.circuit import (
-    Circuit,
+from mcmatch.model.circuit import Circuit
+from mcmatch.model.reduced import (
     ReducedCircuit,
     device_state,
     reduce_circuit,

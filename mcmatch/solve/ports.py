@@ -14,7 +14,8 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from mcmatch.model.circuit import Circuit, ReducedCircuit, reduce_circuit, reduced_residual_jacobian, residual_jacobian
+from mcmatch.model.circuit import Circuit, residual_jacobian
+from mcmatch.model.reduced import ReducedCircuit, reduce_circuit, reduced_residual_jacobian
 from mcmatch.model.small_signal import node_unknowns, port_resistance
 from mcmatch.solve.newton import SparseElimination
 
