@@ -120,11 +120,28 @@ def shutdown(executor: ProcessPoolExecutor | None = None, kill: bool = False) ->
         if parent != os.getpid():  # inherited by a fork: the pool belongs to another process
             continue
         if kill:
-            processes = getattr(pool, "_processes", None) or {}  # no public way before Python 3.14
-            for process in list(processes.values()):
-                if process.is_alive():
-                    process.kill()
+            _kill_workers(pool)
         pool.shutdown(wait=not kill, cancel_futures=True)
+
+
+def _kill_workers(pool: ProcessPoolExecutor) -> None:
+    """End a pool's workers at once, and let its manager thread see them gone.
+
+    A worker killed while it writes a chunk's result leaves half a message in the result pipe; the executor's manager
+    thread then waits for the rest forever (this process holds the pipe's write end too), and the interpreter hangs
+    at exit joining it (seen about once in 40 interrupted runs). Closing our write end once the workers are dead turns
+    that wait into end-of-file, which the manager handles as a broken pool. No public way to do either before
+    Python 3.14, hence the private attributes (absent ones are skipped).
+    """
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    for process in processes:
+        if process.is_alive():
+            process.kill()
+    for process in processes:
+        process.join(timeout=5)
+    writer = getattr(getattr(pool, "_result_queue", None), "_writer", None)
+    if writer is not None:
+        writer.close()
 
 
 atexit.register(shutdown, kill=True)  # a map never finished nor closed (its generator dropped unfinished)
