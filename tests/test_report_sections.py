@@ -301,3 +301,24 @@ def test_operating_point_rows_keep_one_prefix_across_devices():
     # common practice, no source: 390.2 nS beside 1.561 uS reads as 0.3902 uS; 1/g_ds 2.563 MOhm and 0.6406 MOhm
     assert "0.3902 \u00b5S" in text and "1.561 \u00b5S" in text and "nS" not in text
     assert "2.563 M\u03a9" in text and "0.6406 M\u03a9" in text
+
+
+def test_scope_says_which_variation_each_sample_draws():
+    # Common practice, no source: the report states the statistical model its numbers come from.
+    from mcmatch.report.sections.scope import variation_text
+
+    assert "per-device mismatch only" in variation_text({})
+    summary = {
+        "measures": {"v_nb": {"unit": "V"}, "err": {"unit": "1"}},
+        "variation": {
+            "mode": "both",
+            "measures": {
+                "v_nb": {"std_local": 1.14e-3, "std_global": 15.2e-3, "std_total": 15.24e-3},
+                "err": {"std_local": 0.014, "std_global": 0.0006, "std_total": 0.014},
+            },
+        },
+    }
+    text = variation_text(summary)
+    assert "mismatch plus die-to-die" in text
+    assert "v_nb std 1.14 mV local, 15.2 mV global" in text
+    assert "err std" in text and "%" in text

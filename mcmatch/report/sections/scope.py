@@ -61,6 +61,37 @@ def conditions_text(summary: dict) -> str:
     )
 
 
+#: What each [analysis] variation mode draws per sample (die).
+VARIATION_WORDS = {
+    "local": "per-device mismatch only (no die-to-die process spread; corners cover the process)",
+    "global": "die-to-die process spread only (no per-device mismatch)",
+    "both": "per-device mismatch plus die-to-die process spread, one draw per die",
+}
+
+
+def variation_text(summary: dict) -> str:
+    """Which variation each sample draws (summary["variation"]; absent: local mismatch), with the linearised split of
+    the spread of the first measures when a global part was drawn."""
+    block = summary.get("variation") if isinstance(summary.get("variation"), Mapping) else {}
+    mode = str(block.get("mode", "local"))
+    text = f"Variation: {VARIATION_WORDS.get(mode, mode)}."
+    measures = block.get("measures") if isinstance(block.get("measures"), Mapping) else {}
+    units = {k: (v.get("unit") or "") for k, v in (summary.get("measures") or {}).items() if isinstance(v, Mapping)}
+    parts = []
+    for name, m in list(measures.items())[:3]:
+        if (
+            isinstance(m, Mapping)
+            and finite(m.get("std_local")) is not None
+            and finite(m.get("std_global")) is not None
+        ):
+            unit = units.get(name, "")
+            fmt = (lambda v: percent(v, 3)) if unit == "1" else (lambda v, u=unit: eng(v, u))
+            parts.append(f"{name} std {fmt(m['std_local'])} local, {fmt(m['std_global'])} global")
+    if parts:
+        text += " Spread split (linearised): " + "; ".join(parts) + "."
+    return text
+
+
 def _compliance_lines(summary: dict) -> list[dict]:
     """Headroom compliance of the main run and the worst corner (summary["compliance"], corners[i]["compliance"])."""
     lines = []
@@ -114,6 +145,7 @@ def scope_lines(summary: dict) -> list[dict]:
             "uses the foundry's qualified statistical models and local design rules.",
         ),
         _line("SCOPE", "", conditions_text(summary)),
+        _line("SCOPE", "", variation_text(summary)),
     ]
     warnings = []
     points = summary.get("operating_point")
