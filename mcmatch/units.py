@@ -49,7 +49,20 @@ def _registry():
 
 @lru_cache(maxsize=512)
 def _unit_factor(unit_text: str, target: str) -> tuple[float, float]:
-    """Return (scale, offset) with value_in_target = scale * number + offset for `unit_text`; raise UnitError."""
+    """Return (scale, offset) with value_in_target = scale * number + offset for `unit_text`; raise UnitError.
+
+    The spellings of the bundled configs come from a table pint generated (mcmatch/unit_table.py), so loading them
+    never imports pint; anything else asks pint."""
+    from mcmatch.unit_table import FACTORS
+
+    known = FACTORS.get((unit_text.strip(), target))
+    if known is not None:
+        return known
+    return _pint_factor(unit_text, target)
+
+
+def _pint_factor(unit_text: str, target: str) -> tuple[float, float]:
+    """:func:`_unit_factor` by pint."""
     registry = _registry()
     text = unit_text.replace("%", " percent ").replace("Ω", "ohm").replace("µ", "u").strip()
     if text in ("", "1"):

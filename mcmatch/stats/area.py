@@ -12,13 +12,13 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
 
 from mcmatch.config.schema import Limits, Mosfet, Netlist
+from mcmatch.stats.distributions import chi2_ppf
 from mcmatch.stats.yields import normal_yield
 
 #: Delta chi-square (1 degree of freedom) a floor term must gain over the pure Pelgrom fit to be kept: the 99 % point.
-FLOOR_CHI2 = float(stats.chi2.ppf(0.99, 1))
+FLOOR_CHI2 = chi2_ppf(0.99, 1)
 #: A measure whose fitted log-log slope of sigma against area is above this is flagged as not falling with area.
 FALLING_SLOPE = -0.1
 #: The minimum-area search spans the swept areas divided and multiplied by this factor.
@@ -180,6 +180,8 @@ def minimum_area(
     `k_sigma`, mean +- k_sigma sigma(A) lies inside them. Returns {"area", "std", "yield", "criterion"} or
     {"area": None, "reason"} when no area in `area_range` meets it.
     """
+    from scipy.optimize import brentq  # imported only when an area study runs (start-up of every run)
+
     if k_sigma is not None:
         criterion = f"mean +- {k_sigma:g} sigma inside the limits (normal model)"
 
@@ -207,9 +209,7 @@ def minimum_area(
     if i == 0:
         found, note = float(grid[0]), "met at the smallest area searched"
     else:
-        found = float(
-            optimize.brentq(lambda a: float(margin(np.array(a))), grid[i - 1], grid[i], xtol=1e-30, rtol=1e-10)
-        )
+        found = float(brentq(lambda a: float(margin(np.array(a))), grid[i - 1], grid[i], xtol=1e-30, rtol=1e-10))
         found = max(found, float(grid[i - 1]))
         note = None
     sd = float(fit.std(found))

@@ -9,7 +9,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
+
+from mcmatch.stats.distributions import chi2_ppf
 
 #: Terms listed in "top": the largest contributors, at most this many.
 TOP = 3
@@ -22,8 +23,8 @@ def std_interval(std: float, count: int, confidence: float = 0.95) -> list[float
     if std is None or count is None or count < 2:
         return None
     dof = count - 1
-    lo = std * math.sqrt(dof / stats.chi2.ppf(0.5 + confidence / 2.0, dof))
-    hi = std * math.sqrt(dof / stats.chi2.ppf(0.5 - confidence / 2.0, dof))
+    lo = std * math.sqrt(dof / chi2_ppf(0.5 + confidence / 2.0, dof))
+    hi = std * math.sqrt(dof / chi2_ppf(0.5 - confidence / 2.0, dof))
     return [float(lo), float(hi)]
 
 

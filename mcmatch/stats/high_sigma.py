@@ -32,8 +32,9 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 from scipy.special import logsumexp
+
+from mcmatch.stats.distributions import normal_isf, normal_ppf
 
 #: Farthest the boundary search looks along the linearised direction [sigma of z].
 SEARCH_LIMIT = 40.0
@@ -167,7 +168,7 @@ def estimate(weights: np.ndarray, failed: np.ndarray, confidence: float = 0.95) 
     terms = np.where(f, w, 0.0)
     p = float(terms.mean())
     se = float(terms.std(ddof=1) / np.sqrt(n)) if n > 1 else 0.0
-    zq = float(stats.norm.ppf(0.5 + confidence / 2.0))
+    zq = normal_ppf(0.5 + confidence / 2.0)
     out: dict = {
         "fail_probability": p,
         "std_error": se,
@@ -197,4 +198,4 @@ def sigma_level(p: float) -> float | None:
     """
     if not 0 < p < 1:
         return None
-    return float(stats.norm.isf(p))
+    return normal_isf(p)

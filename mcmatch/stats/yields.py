@@ -5,25 +5,23 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from mcmatch.config.schema import Limits
+from mcmatch.stats import distributions as dist
 
 
 def clopper_pearson(passed: int, total: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Exact two-sided binomial interval on a proportion (Clopper and Pearson, Biometrika 1934), via scipy.stats."""
+    """Exact two-sided binomial interval on a proportion (Clopper and Pearson, Biometrika 1934), beta-quantile form."""
     if total <= 0:
         return (0.0, 1.0)
-    ci = stats.binomtest(int(passed), int(total)).proportion_ci(confidence_level=confidence, method="exact")
-    return (float(ci.low), float(ci.high))
+    return dist.clopper_pearson(int(passed), int(total), confidence)
 
 
 def wilson(passed: int, total: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Wilson score interval on a proportion, via scipy.stats."""
+    """Wilson score interval on a proportion."""
     if total <= 0:
         return (0.0, 1.0)
-    ci = stats.binomtest(int(passed), int(total)).proportion_ci(confidence_level=confidence, method="wilson")
-    return (float(ci.low), float(ci.high))
+    return dist.wilson(int(passed), int(total), confidence)
 
 
 def passes(values: np.ndarray, limits: Limits) -> np.ndarray:
@@ -66,7 +64,7 @@ def lower_bound(passed: int, total: int, confidence: float = 0.95) -> float:
         return 0.0
     if passed <= 0:
         return 0.0
-    return float(stats.beta.ppf(1.0 - confidence, passed, total - passed + 1))
+    return dist.beta_ppf(1.0 - confidence, passed, total - passed + 1)
 
 
 def zero_failure_upper_bound(total: int, confidence: float = 0.95, two_sided: bool = True) -> float:
@@ -113,9 +111,9 @@ def gaussian_tail(mean: float, std: float, limits: Limits) -> float | None:
         return 0.0 if inside else 1.0
     p = 0.0
     if limits.max is not None:
-        p += float(stats.norm.sf((limits.max - mean) / std))
+        p += dist.normal_sf((limits.max - mean) / std)
     if limits.min is not None:
-        p += float(stats.norm.cdf((limits.min - mean) / std))
+        p += dist.normal_cdf((limits.min - mean) / std)
     return min(p, 1.0)
 
 
@@ -123,8 +121,8 @@ def normal_yield(mean: float | np.ndarray, std: float | np.ndarray, limits: Limi
     """Fraction inside the limits of a normal distribution N(mean, std^2) [1]; vectorised over mean and std."""
     mean = np.asarray(mean, dtype=float)
     std = np.maximum(np.asarray(std, dtype=float), 1e-300)
-    upper = stats.norm.cdf((limits.max - mean) / std) if limits.max is not None else 1.0
-    lower = stats.norm.cdf((limits.min - mean) / std) if limits.min is not None else 0.0
+    upper = dist.normal_cdf_array((limits.max - mean) / std) if limits.max is not None else 1.0
+    lower = dist.normal_cdf_array((limits.min - mean) / std) if limits.min is not None else 0.0
     out = np.clip(upper - lower, 0.0, 1.0)
     return float(out) if out.ndim == 0 else out
 

@@ -14,7 +14,6 @@ from dataclasses import replace
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from mcmatch.config.schema import Config
 from mcmatch.draws.mismatch import BLOCK, mismatch_from_normals, standard_normals
@@ -33,6 +32,7 @@ from mcmatch.run.study import Study, nominal_measures, nominal_point, solve_samp
 from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.bank import bank_yield, channel_passes, mean_correlation
 from mcmatch.stats.describe import describe
+from mcmatch.stats.distributions import normal_sf
 from mcmatch.stats.yields import passes, yield_block
 from mcmatch.studies.analyses import _mc
 
@@ -198,7 +198,7 @@ def high_sigma_measure(study: Study, name: str, limits, samples: int, gradient: 
     values, converged = evaluate(z)
     failed = hs.fails(values, converged, limits.min, limits.max)
     result = hs.estimate(weights, failed)
-    linear = [stats.norm.sf(s.linear_beta) for s in sides if not math.isnan(s.linear_beta)]
+    linear = [normal_sf(s.linear_beta) for s in sides if not math.isnan(s.linear_beta)]
     out = {
         "fail_probability": result["fail_probability"],
         "ci95": result["ci95"],
