@@ -15,7 +15,7 @@ import numpy as np
 from mcmatch.config.schema import Config, Limits
 from mcmatch.stats.describe import describe
 from mcmatch.stats.margins import TIE_SIGMAS, group_label, margin_error, spec_margin, within_error
-from mcmatch.stats.yields import passes, yield_block
+from mcmatch.stats.yields import joint_passes, passes, yield_block
 
 CRITERION_YIELD = "lowest spec yield (ties: largest |mean - nominal| + 3 std)"  # the criterion before margins
 CRITERION_MARGIN = (
@@ -78,11 +78,10 @@ def spec_table_yield(columns: dict[str, np.ndarray], specs: dict[str, Limits]) -
     """Joint yield block (Clopper-Pearson) plus per-spec pass counts; failed solves fail every spec."""
     converged = np.asarray(columns["converged"], dtype=bool)
     total = int(converged.size)
-    joint = converged.copy()
+    joint = joint_passes(columns, specs)
     per_spec = {}
     for name, limits in specs.items():
         ok = passes(columns[name], limits) & converged
-        joint &= ok
         per_spec[name] = {"passed": int(ok.sum()), "fraction": float(ok.mean()) if total else None}
     block = yield_block(int(joint.sum()), total)
     block["specs"] = per_spec

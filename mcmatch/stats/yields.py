@@ -35,6 +35,14 @@ def passes(values: np.ndarray, limits: Limits) -> np.ndarray:
     return ok
 
 
+def joint_passes(columns: dict[str, np.ndarray], specs: dict[str, Limits]) -> np.ndarray:
+    """Boolean mask of the samples that converged and meet every spec (one die in spec)."""
+    joint = np.asarray(columns["converged"], dtype=bool).copy()
+    for name, limits in specs.items():
+        joint &= passes(columns[name], limits)
+    return joint
+
+
 def samples_needed(target_yield: float, confidence: float) -> int:
     """Zero-failure samples that demonstrate `target_yield` at `confidence`: N >= ln(1 - C) / ln(Y)."""
     return int(math.ceil(math.log(1.0 - confidence) / math.log(target_yield) - 1e-12))

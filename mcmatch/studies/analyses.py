@@ -30,7 +30,7 @@ from mcmatch.stats.compliance import compliance_of_columns
 from mcmatch.stats.contributions import contribution_table
 from mcmatch.stats.corners import corner_entry, corner_grid, error_entry, worst_corners
 from mcmatch.stats.describe import describe
-from mcmatch.stats.yields import passes, yield_block, yield_extras
+from mcmatch.stats.yields import joint_passes, passes, yield_block, yield_extras
 
 #: Samples per area point when [analysis.area] gives none: the main run's count, capped at this.
 AREA_DEFAULT_SAMPLES = 4000
@@ -127,9 +127,7 @@ def run_area(config: Config, options: Options | None = None) -> dict:
             d = describe(columns[name], nominal[name])
             measures[name] = {"nominal": d["nominal"], "mean": d["mean"], "std": d["std"], "count": d["count"]}
         converged = np.asarray(columns["converged"], dtype=bool)
-        joint = converged.copy()
-        for name, limits in config.specs.items():
-            joint &= passes(columns[name], limits)
+        joint = joint_passes(columns, config.specs)
         points.append(
             {
                 **keys,

@@ -33,7 +33,7 @@ from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.bank import bank_yield, channel_passes, mean_correlation
 from mcmatch.stats.describe import describe
 from mcmatch.stats.distributions import normal_sf
-from mcmatch.stats.yields import passes, yield_block
+from mcmatch.stats.yields import joint_passes, yield_block
 from mcmatch.studies.analyses import _mc
 
 #: Random stream of the per-die gradient draws of Pelgrom's distance term (device draws keep the main stream).
@@ -133,9 +133,7 @@ def run_placements(
                 "count": d["count"],
             }
         converged = np.asarray(columns["converged"], dtype=bool)
-        joint = converged.copy()
-        for name, limits in config.specs.items():
-            joint &= passes(columns[name], limits)
+        joint = joint_passes(columns, config.specs)
         entry["measures"] = measures
         entry["yield"] = yield_block(int(joint.sum()), int(converged.size))
         entry["samples"] = int(converged.size)

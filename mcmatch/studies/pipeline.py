@@ -30,7 +30,7 @@ from mcmatch.stats.streaming import (
     RunAccumulator,
     sampling_summary,
 )
-from mcmatch.stats.yields import passes, yield_block
+from mcmatch.stats.yields import joint_passes, passes, yield_block
 
 #: Failed samples whose parameters are listed in the summary, as examples.
 FAILED_EXAMPLES = 5
@@ -60,11 +60,10 @@ def spec_yields(columns: dict[str, np.ndarray], config: Config, confidence: floa
     """Joint yield and per-spec yields; failed solves fail every spec."""
     converged = np.asarray(columns["converged"], dtype=bool)
     total = int(converged.size)
-    joint = converged.copy()
+    joint = joint_passes(columns, config.specs)
     per_spec = {}
     for name, limits in config.specs.items():
         ok = passes(columns[name], limits) & converged
-        joint &= ok
         per_spec[name] = {"min": limits.min, "max": limits.max, **yield_block(int(ok.sum()), total, confidence)}
     block = yield_block(int(joint.sum()), total, confidence)
     block["specs"] = per_spec

@@ -32,7 +32,7 @@ from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, p
 from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.stats import sizing as arith
 from mcmatch.stats.corners import GridPoint, corner_grid
-from mcmatch.stats.yields import passes, yield_block
+from mcmatch.stats.yields import joint_passes, yield_block
 from mcmatch.studies.analyses import _mc
 
 #: Random streams of the linear-model draws (mismatch; LINEAR_STREAM + 1 the global draws) and of the confirming
@@ -306,10 +306,8 @@ def confirm(config: Config, ev: Evaluator, design: dict, aspects: tuple, conditi
         stream=CONFIRM_STREAM,
     )
     columns = _mc(study, sizing.samples, options)
-    ok = np.asarray(columns["converged"], dtype=bool)
-    failed = int((~ok).sum())
-    for name, limits in config.specs.items():
-        ok &= passes(columns[name], limits)
+    failed = int((~np.asarray(columns["converged"], dtype=bool)).sum())
+    ok = joint_passes(columns, config.specs)
     block = yield_block(int(ok.sum()), int(ok.size), config.analysis.target.confidence)
     return {
         "yield": block["fraction"],
