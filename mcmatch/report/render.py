@@ -28,6 +28,7 @@ from mcmatch.report.sections.high_sigma import high_sigma_table
 from mcmatch.report.sections.measures import measures_table, sampling_section, sampling_text
 from mcmatch.report.sections.operating_point import nodes_table, operating_point_tables
 from mcmatch.report.sections.placements import placement_drawing, placements_table
+from mcmatch.report.sections.sizing import sizing_section
 from mcmatch.report.sections.verdict import header_items, verdict_section
 from mcmatch.report.sections.yields import failed_section, yield_section
 from mcmatch.report.targets import MAX_KEY_MEASURES, key_measures
@@ -79,6 +80,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "header": header_items(summary),
         "notes": config.get("notes") if isinstance(config.get("notes"), str) else "",
         "verdict": verdict_section(summary, keys) if summary.get("measures") else None,
+        "sizing": sizing_section(summary, figures),
         "circuit": circuit_section(summary, config),
         "operating_point": operating_point_tables(summary.get("operating_point")),
         "nodes": nodes_table(summary.get("nominal_operating_point")),
@@ -100,6 +102,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
     }
     sections = [
         ("verdict", "Verdict", ctx["verdict"]),
+        ("sizing", "Sizing for the die-yield target", ctx["sizing"]),
         ("circuit", "Circuit and technology", ctx["circuit"]),
         ("operating-point", "Nominal operating point", ctx["operating_point"] or ctx["nodes"]),
         ("measures", "Measures", ctx["measures"]),

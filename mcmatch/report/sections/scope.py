@@ -6,6 +6,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 
 from mcmatch.report.format import celsius, eng, finite, percent
+from mcmatch.report.sections.sizing import sizing_scope
 from mcmatch.report.targets import corner_label
 
 #: Headroom below this flags a device as close to leaving saturation [V].
@@ -161,4 +162,8 @@ def scope_lines(summary: dict) -> list[dict]:
         more = len(warnings) - MAX_WARNINGS + 1
         warnings = [*warnings[: MAX_WARNINGS - 1], f"\u2026 and {more} more warnings: see the operating point."]
     lines += [_line(*CAUTION, w) for w in warnings]
+    sizing = sizing_scope(summary)
+    if sizing:
+        feasible = isinstance((summary.get("sizing") or {}).get("chosen"), Mapping)
+        lines.append(_line("SCOPE", "", sizing) if feasible else _line(*CAUTION, sizing))
     return lines + _compliance_lines(summary)
