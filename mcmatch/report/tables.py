@@ -24,6 +24,9 @@ def num(text: object) -> dict:
 def table(columns: list[str | tuple[str, str]], rows: list[dict], caption: str = "", cls: str = "") -> dict:
     """Template table: columns are labels or (label, css class); rows {"cells": [...], "cls": ""}."""
     cols = [{"label": c, "cls": ""} if isinstance(c, str) else {"label": c[0], "cls": c[1]} for c in columns]
+    for c in cols:
+        if c["label"] == "status" and not c["cls"]:
+            c["cls"] = "status-col"  # kept in view on a narrow screen (style.css)
     return {"columns": cols, "rows": rows, "caption": caption, "cls": cls}
 
 

@@ -216,7 +216,7 @@ def _figure(sz: Mapping, designs: list, pick: int | None, present: Mapping | Non
     return {
         "svg": ax.svg(),
         "alt": title,
-        "cls": "fig-wide",
+        "cls": "fig-wide fig-sizing",
         "caption": "Every evaluated design: total gate area against its worst spec margin over the conditions (left) "
         "and its smallest headroom Vds \u2212 Vdsat (right, the dashed red line is min_headroom). Colour: headroom; "
         "a cross misses the target or a limit; the dashed line joins the Pareto front; the star is the chosen design, "
