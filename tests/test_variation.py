@@ -308,6 +308,17 @@ def test_demo_runs_with_both(demo_project, capsys):
     v_nb, i_out = block["measures"]["v_nb"], block["measures"]["i_out"]
     assert v_nb["std_global"] > 5 * v_nb["std_local"]
     assert i_out["std_global"] < 0.2 * i_out["std_local"]
+    # the report's variation table carries every measure of the split, with the global share of the variance
+    from mcmatch.report.format import plain
+    from mcmatch.report.render import render_report
+
+    html = render_report(json.loads((out / "summary.json").read_text()), None, "")
+    section = html[html.index('<section id="variation"') :]
+    section = section[: section.index("</section>")]
+    for name in block["measures"]:
+        assert f">{name}<" in section
+    share = v_nb["std_global"] ** 2 / (v_nb["std_global"] ** 2 + v_nb["std_local"] ** 2)
+    assert share > 25 / 26 and f"{plain(share * 100, 3)} %" in section
 
 
 # ---------------------------------------------------------------------------------------------- validation

@@ -29,6 +29,7 @@ from mcmatch.report.sections.measures import measures_table, sampling_section, s
 from mcmatch.report.sections.operating_point import nodes_table, operating_point_tables
 from mcmatch.report.sections.placements import placement_drawing, placements_table
 from mcmatch.report.sections.sizing import sizing_section
+from mcmatch.report.sections.variation import variation_table
 from mcmatch.report.sections.verdict import header_items, verdict_section
 from mcmatch.report.sections.yields import failed_section, yield_section
 from mcmatch.report.targets import MAX_KEY_MEASURES, key_measures
@@ -95,6 +96,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "placement_drawing": placement_drawing(summary),
         "high_sigma": high_sigma_table(summary),
         "bank": bank_table(summary),
+        "variation": variation_table(summary),
         "failed": failed_section(summary),
         "assumptions": assumptions(summary, config),
         "config_text": config_text,
@@ -114,6 +116,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         ("placements", "Placements", ctx["placements"]),
         ("high-sigma", "High-sigma failure estimate", ctx["high_sigma"]),
         ("bank", "Output bank", ctx["bank"]),
+        ("variation", "Local and global variation", ctx["variation"]),
         ("failed-solves", "Failed solves", ctx["failed"]),
         ("assumptions", "Assumptions and cautions", ctx["assumptions"]),
         ("config", "Configuration, for reproduction", ctx["config_text"]),
