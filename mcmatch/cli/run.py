@@ -108,7 +108,7 @@ def execute(args: argparse.Namespace) -> int:
 
     def write(folder: Path) -> None:
         write_json(folder / "summary.json", result.summary)
-        write_samples(folder / samples_name, result.table)
+        write_samples(folder / samples_name, result.columns)
         (folder / "config.toml").write_text(config.text, encoding="utf-8")
         if config.technology_text:  # the technology file too: the run folder alone reproduces the run
             (folder / "technology.toml").write_text(config.technology_text, encoding="utf-8")
@@ -117,7 +117,7 @@ def execute(args: argparse.Namespace) -> int:
         from mcmatch.report.render import render_report
 
         try:  # rendered whole, then written: never half a report; a rendering bug must not cost the solved results
-            html = render_report(result.summary, result.table, config.text)
+            html = render_report(result.summary, result.columns, config.text)
         except Exception as exc:
             print(
                 f"mcmatch: warning: report.html not written ({type(exc).__name__}: {exc}); re-render it with "

@@ -4,16 +4,28 @@ These write into a run folder that :func:`mcmatch.results.atomic.write_run_folde
 
 from __future__ import annotations
 
+import csv
 import json
+from collections.abc import Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+#: The kept sample rows as columns of equal length: `sample`, `converged`, measures, draws dvth_* [V], dbeta_* [1].
+Columns = dict[str, np.ndarray]
+#: Float text of the samples table: 17 significant digits round-trip every double.
+FLOAT_FORMAT = "%.17g"
 
 
-def to_frame(columns: dict[str, np.ndarray]) -> pd.DataFrame:
-    """Tidy table: `sample`, `converged`, then measures, then the mismatch draws dvth_* [V] and dbeta_* [1]."""
-    return pd.DataFrame(columns)
+def to_frame(columns: Mapping[str, np.ndarray]) -> pd.DataFrame:
+    """Tidy pandas table of the columns (pandas is imported here only: a run writes its CSV without it)."""
+    import pandas as pd
+
+    return pd.DataFrame(dict(columns))
 
 
 def write_json(path: Path, data: dict) -> None:
@@ -49,15 +61,38 @@ def _json_default(value: object) -> object:
     raise TypeError(f"not JSON serialisable: {type(value).__name__}")
 
 
-def write_samples(path: Path, table: pd.DataFrame) -> None:
-    """CSV with full float precision (repr round-trips), or parquet for a .parquet path."""
+def write_samples(path: Path, table: Mapping[str, np.ndarray] | pd.DataFrame) -> None:
+    """CSV with full float precision (repr round-trips), or parquet for a .parquet path; from columns or a table."""
     if path.suffix == ".parquet":
-        table.to_parquet(path, index=False)
-    else:
-        table.to_csv(path, index=False, float_format="%.17g")
+        frame = table if hasattr(table, "to_parquet") else to_frame(table)
+        frame.to_parquet(path, index=False)
+        return
+    columns = {str(k): np.asarray(table[k]) for k in table}  # a DataFrame iterates over its column names too
+    texts = [_column_text(v) for v in columns.values()]
+    if any(t is None for t in texts):  # a text column: pandas' own quoting
+        to_frame(columns).to_csv(path, index=False, float_format=FLOAT_FORMAT)
+        return
+    with open(path, "w", encoding="utf-8", newline="") as f:
+        out = csv.writer(f, lineterminator="\n")
+        out.writerow(columns)
+        out.writerows(zip(*texts, strict=True))
+
+
+def _column_text(values: np.ndarray) -> list[str] | None:
+    """One column as the texts pandas' CSV writer gives with FLOAT_FORMAT (NaN empty), or None for text columns."""
+    kind = values.dtype.kind
+    if kind == "b":
+        return ["True" if v else "False" for v in values.tolist()]
+    if kind in "iu":
+        return [str(v) for v in values.tolist()]
+    if kind == "f":
+        return ["" if v != v else FLOAT_FORMAT % v for v in values.tolist()]
+    return None
 
 
 def read_samples(path: Path) -> pd.DataFrame:
+    import pandas as pd
+
     if Path(path).suffix == ".parquet":
         return pd.read_parquet(path)
     return pd.read_csv(path)

@@ -7,16 +7,17 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from functools import cached_property
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from mcmatch import __version__
 from mcmatch.config.schema import Config
 from mcmatch.draws.mismatch import BLOCK, SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.results.summary import finish_summary
-from mcmatch.results.tables import to_frame
+from mcmatch.results.tables import Columns, to_frame
 from mcmatch.run.chunks import CHUNK_QUANTUM, resolve_jobs, run_chunk, stream_chunks
 from mcmatch.run.loads import resolve_loads
 from mcmatch.run.study import Study, nominal_measures, prepare
@@ -31,6 +32,9 @@ from mcmatch.stats.streaming import (
     sampling_summary,
 )
 from mcmatch.stats.yields import joint_passes, passes, yield_block
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 #: Failed samples whose parameters are listed in the summary, as examples.
 FAILED_EXAMPLES = 5
@@ -50,10 +54,17 @@ class RunOptions:
 
 @dataclass
 class RunResult:
+    """A study's summary dict, its kept sample rows as columns (SI) and the prepared study."""
+
     summary: dict
-    table: pd.DataFrame
+    columns: Columns
     study: Study
     extras: dict = field(default_factory=dict)
+
+    @cached_property
+    def table(self) -> pd.DataFrame:
+        """The kept rows as a pandas table (built on first use: the command line writes and reports without it)."""
+        return to_frame(self.columns)
 
 
 def spec_yields(columns: dict[str, np.ndarray], config: Config, confidence: float = 0.95) -> dict:
@@ -199,7 +210,6 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     from mcmatch.studies.variation import run_variation  # local and global parts of the spread (variation mode)
 
     summary.update(run_variation(config, study, summary))
-    table = to_frame(kept)
     summary["run"]["run_time_s"] = time.perf_counter() - started
     summary = finish_summary(summary)  # schema_version added; checked against results.summary.Summary
-    return RunResult(summary=summary, table=table, study=study)
+    return RunResult(summary=summary, columns=kept, study=study)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -13,26 +14,28 @@ if TYPE_CHECKING:
     import pandas as pd
 
 
-def distributions(summary: dict, samples: pd.DataFrame | None, keys: list[str]) -> list[dict]:
+def distributions(
+    summary: dict, samples: pd.DataFrame | Mapping[str, np.ndarray] | None, keys: list[str]
+) -> list[dict]:
     """A histogram per measure, and a normal-probability plot beside it for the key measures with the worst tails."""
-    if samples is None or samples.empty:
+    if samples is None or "converged" in samples and len(samples["converged"]) == 0:
         return []
     from mcmatch.report import figures as plots
 
     keys = tail_measures(summary, keys)
 
     specs = summary.get("specs") or {}
-    converged = samples["converged"].astype(bool).to_numpy() if "converged" in samples else None
+    converged = np.asarray(samples["converged"]).astype(bool) if "converged" in samples else None
     out = []
     for name, m in (summary.get("measures") or {}).items():
         if name not in samples:
             continue
-        column = samples[name]
+        column = np.asarray(samples[name])  # a pandas column or the run's own numpy column
         if column.dtype.kind not in "fiub":  # text in a numeric column: read what parses
             import pandas as pd
 
             column = pd.to_numeric(column, errors="coerce")
-        values = column.to_numpy(dtype=float)
+        values = np.asarray(column, dtype=float)
         if converged is not None:
             values = values[converged]
         values = values[np.isfinite(values)]
