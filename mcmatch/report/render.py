@@ -59,6 +59,24 @@ def _parse_config(config_text: str) -> dict:
         return {}
 
 
+#: The caution printed at the foot of every page.
+PAGE_CAUTION = "Pre-layout estimate from compact models, not sign-off"
+
+
+def page_identity(summary: dict) -> str:
+    """The run's identity printed at the head of every page: title, run date, samples, seed, config digest."""
+    run = summary.get("run") or {}
+    digest = str(run.get("config_digest") or "")[:12]
+    parts = [
+        str(summary.get("title") or "Untitled circuit")[:90],
+        f"run {str(run.get('started_utc') or '?')[:16].replace('T', ' ')} UTC",
+        f"{summary.get('samples', 0):,} samples, seed {summary.get('seed', '?')}",
+    ]
+    if digest:
+        parts.append(f"config {digest}")
+    return " \u00b7 ".join(parts)
+
+
 def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, figures: bool = True) -> dict:
     """Everything the template shows, as display strings and data URIs; sections without data are None or empty."""
     from mcmatch import __version__
@@ -101,6 +119,8 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "assumptions": assumptions(summary, config),
         "config_text": config_text,
         "config_path": (summary.get("run") or {}).get("config", "config.toml"),
+        "page_identity": page_identity(summary),
+        "page_caution": PAGE_CAUTION,
     }
     sections = [
         ("verdict", "Verdict", ctx["verdict"]),

@@ -18,7 +18,21 @@ def environment() -> Environment:
         trim_blocks=True,
         lstrip_blocks=True,
     )
+    env.filters["css_string"] = css_string
     return env
+
+
+def css_string(text: object) -> Markup:
+    """A CSS string literal of `text` for the inline stylesheet, where HTML escaping does not apply: quotes,
+    backslashes, "<" (so no "</style>" can close the sheet) and every character outside printable ASCII are written
+    as CSS hexadecimal escapes."""
+    out = []
+    for ch in str(text):
+        if " " <= ch <= "~" and ch not in "\\\"'<>&":
+            out.append(ch)
+        else:
+            out.append(f"\\{ord(ch):06x}")
+    return Markup('"' + "".join(out) + '"')
 
 
 @lru_cache(maxsize=1)
