@@ -13,7 +13,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from mcmatch.report.svg import Canvas, log_ticks, nice_ticks
+from mcmatch.report.svg import Canvas, nice_ticks, sparse_log_ticks
 
 #: The margin panel shows margins down to this [sigma]; a design further below is drawn on the lower edge.
 MARGIN_FLOOR = -3.0
@@ -85,7 +85,7 @@ def sizing_tradeoff(sizing: Mapping, title: str = "", desc: str = "", heading: s
         y_lo, y_hi = (min(shown), max(shown)) if shown else (0.0, 1.0)
         pad = 0.08 * (y_hi - y_lo or 1.0)
         ax.set_y(y_lo - pad, y_hi + pad)
-        ticks = area_ticks(x_lo, x_hi)
+        ticks = sparse_log_ticks(x_lo, x_hi, 5)
         ax.x_axis(ticks, [f"{t:,.6g}" for t in ticks], "total gate area [\u00b5m\u00b2]")
         ax.y_axis(nice_ticks(y_lo - pad, y_hi + pad, 5), label="")
         ax.text(ax.x0, ax.y0 - 6, label, "label")
@@ -118,13 +118,6 @@ def sizing_tradeoff(sizing: Mapping, title: str = "", desc: str = "", heading: s
         items.append(("D", "nominal-mark", "design as drawn"))
     ax.legend(items, ax.x1 + 14, ax.y0 + 8)
     return ax
-
-
-def area_ticks(lo: float, hi: float) -> list[float]:
-    """Log ticks [µm²] few enough for a half-width panel: decades only when the range spans more than one."""
-    ticks = log_ticks(lo, hi)
-    decades = [t for t in ticks if math.isclose(10 ** round(math.log10(t)), t)]
-    return decades if len(ticks) > 5 and len(decades) >= 2 else ticks
 
 
 def _milli(value: object) -> float | None:

@@ -16,7 +16,7 @@ from statistics import NormalDist
 
 import numpy as np
 
-from mcmatch.report.svg import CHAR, Canvas, log_ticks, nice_ticks
+from mcmatch.report.svg import CHAR, Canvas, log_ticks, nice_ticks, sparse_log_ticks
 
 #: Share of the variance below which a contribution term is folded into "others" [1].
 MIN_SHARE = 0.001
@@ -215,8 +215,10 @@ def area_sigma(
     unit: str = "",
     title: str | None = None,
     desc: str = "",
+    present: float | None = None,
 ) -> Canvas:
-    """Sigma of one measure against summed gate area, log-log, with the fit and the minimum-area point.
+    """Sigma of one measure against summed gate area, log-log, with the fit, the minimum-area point and the design
+    as drawn (`present`, its gate area [m^2], drawn on the fit).
 
     area: summary["area"] ({points: [{area [m^2], measures: {name: {std}}}], fit: {name: {k, floor}},
     minimum: {name: {area, std}}}); the fit line is sigma = sqrt(k^2 / area + floor^2) (Pelgrom's law with a floor).
@@ -237,7 +239,7 @@ def area_sigma(
     fit = (area.get("fit") or {}).get(measure) or {}
     k, floor = fit.get("k"), float(fit.get("floor") or 0.0)
     minimum = (area.get("minimum") or {}).get(measure) or {}
-    xs = [*a[ok], *([minimum["area"] * 1e12] if minimum.get("area") else [])]
+    xs = [*a[ok], *([minimum["area"] * 1e12] if minimum.get("area") else []), *([present * 1e12] if present else [])]
     ys = [*s[ok], *([minimum["std"] * scale] if minimum.get("std") else [])]
     x_lo, x_hi = min(xs) / 1.6, max(xs) * 1.6
     curve_x = np.geomspace(x_lo, x_hi, 60)
@@ -247,9 +249,8 @@ def area_sigma(
     y_lo, y_hi = min(ys) / 1.25, max(ys) * 1.25
     ax.set_x(x_lo, x_hi, log=True)
     ax.set_y(y_lo, y_hi, log=True)
-    ax.x_axis(
-        log_ticks(x_lo, x_hi), [f"{t:g}" for t in log_ticks(x_lo, x_hi)], "gate area m\u00b7W\u00b7L [\u00b5m\u00b2]"
-    )
+    ticks = sparse_log_ticks(x_lo, x_hi)
+    ax.x_axis(ticks, [f"{t:,.6g}" for t in ticks], "gate area m\u00b7W\u00b7L [\u00b5m\u00b2]")
     ax.y_axis(log_ticks(y_lo, y_hi), [f"{t:g}" for t in log_ticks(y_lo, y_hi)], f"sigma [{unit}]" if unit else "sigma")
     items: list[tuple[str, str, str]] = []
     if curve_y is not None:
@@ -265,6 +266,9 @@ def area_sigma(
         ax.vline(minimum["area"] * 1e12, "nominal")
         ax.marker(minimum["area"] * 1e12, minimum["std"] * scale, "*", 17, "minimum")
         items.append(("*", "minimum", "minimum area for spec"))
+    if present and curve_y is not None:
+        ax.marker(present * 1e12, math.sqrt(float(k) ** 2 / present + floor**2) * scale, "D", 12, "nominal-mark")
+        items.append(("D", "nominal-mark", "design as drawn"))
     ax.legend(items, ax.x1 + 14, ax.y0 + 8)
     return ax
 

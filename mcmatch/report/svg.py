@@ -64,6 +64,13 @@ def log_ticks(lo: float, hi: float) -> list[float]:
     return ticks
 
 
+def sparse_log_ticks(lo: float, hi: float, most: int = 6) -> list[float]:
+    """Log ticks that stay readable: 1-2-5 per decade, decades only when that gives more than `most`."""
+    ticks = log_ticks(lo, hi)
+    decades = [t for t in ticks if math.isclose(10 ** round(math.log10(t)), t)]
+    return decades if len(ticks) > most and len(decades) >= 2 else ticks
+
+
 class Scale:
     """Data [display units] to pixels [px]: linear or log10, from (lo, hi) onto (a, b)."""
 

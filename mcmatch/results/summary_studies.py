@@ -85,6 +85,7 @@ class AreaPoint(Block):
     area: float = Field(description="summed gate area m W L of the scaled devices [m^2]")
     measures: dict[str, AreaPointMeasure] | None = Field(None, description="per measure")
     yield_: float | None = Field(None, alias="yield", description="joint pass fraction [1]")
+    yield_ci95: list[float] | None = Field(None, description="its two-sided 95 % Clopper-Pearson interval [1]")
     samples: int | None = Field(None, description="Monte Carlo samples")
     failed_solves: int | None = Field(None, description="samples whose solve failed")
     error: str | None = Field(None, description="why the point has no operating point")

@@ -133,6 +133,7 @@ def run_area(config: Config, options: Options | None = None) -> dict:
                 **keys,
                 "measures": measures,
                 "yield": float(joint.mean()),
+                "yield_ci95": yield_block(int(joint.sum()), int(joint.size))["ci95"],
                 "samples": int(converged.size),
                 "failed_solves": int((~converged).sum()),
             }

@@ -4,7 +4,17 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import DisplayUnit, display_scale, eng, finite, fixed, interval_text, plain, yield_text
+from mcmatch.report.format import (
+    DisplayUnit,
+    display_scale,
+    eng,
+    finite,
+    fixed,
+    interval_text,
+    plain,
+    yield_cells,
+    yield_text,
+)
 from mcmatch.report.tables import cell, num, row, table
 from mcmatch.report.targets import MAX_KEY_MEASURES, spec_unit
 
@@ -26,7 +36,7 @@ def area_section(summary: dict, key_measures: list[str], figures: bool) -> dict 
             unit = spec_unit(summary, m)
             values = [p.get("measures", {}).get(m, {}).get("std") for p in area["points"] if "measures" in p]
             scale, label = display_scale(values, unit)
-            ax = plots.area_sigma(area, measure=m, scale=scale, unit=label, title=m)
+            ax = plots.area_sigma(area, measure=m, scale=scale, unit=label, title=m, present=area.get("base_area"))
             fit = fits[m]
             low = (minimum.get(m) or {}) if isinstance(minimum.get(m), Mapping) else {}
             ax.title = f"sigma of {m} against gate area: k = {_k_text(fit.get('k'), unit)}" + (
@@ -58,7 +68,12 @@ def area_section(summary: dict, key_measures: list[str], figures: bool) -> dict 
         for m in shown:
             s = (p.get("measures") or {}).get(m, {})
             cells.append(num(units[m](s.get("std"), with_unit=False)))
-        cells.append(num(yield_text(p.get("yield")) if p.get("yield") is not None else "\u2013"))
+        if p.get("yield") is not None and p.get("samples"):
+            n = int(p["samples"])
+            block = {"fraction": p["yield"], "ci95": p.get("yield_ci95"), "total": n, "passed": round(p["yield"] * n)}
+            cells += [num(text) for text in yield_cells(block)]
+        else:
+            cells += [num(yield_text(p.get("yield"))), num("\u2013")]
         cells.append(cell(f"FAILS: {p['error']}", "status status-fail") if "error" in p else cell(""))
         point_rows.append(row(cells))
     points = table(
@@ -67,6 +82,7 @@ def area_section(summary: dict, key_measures: list[str], figures: bool) -> dict 
             ("gate area", "num"),
             *[(units[m].header(f"{m} sigma"), "num") for m in shown],
             ("joint yield", "num"),
+            ("95 % interval", "num"),
             "note",
         ],
         point_rows,
