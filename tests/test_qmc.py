@@ -23,7 +23,7 @@ from mcmatch.draws.mismatch import (
 )
 from mcmatch.run.chunks import run_chunk
 from mcmatch.run.study import prepare, with_seed
-from mcmatch.stats import streaming
+from mcmatch.stats import moments
 from mcmatch.studies.pipeline import RunOptions, run_study
 
 R = SOBOL_SCRAMBLINGS
@@ -172,12 +172,12 @@ def test_unbalanced_sample_counts_are_flagged():
 # --------------------------------------------------------------------------------------------- reproducibility
 def test_same_sobol_results_for_any_chunking_and_worker_count():
     # Common practice, no source: same seed, same numbers, whatever the chunking or the number of workers.
-    n = BLOCK + 3 * streaming.STAT_BLOCK + 517
+    n = BLOCK + 3 * moments.STAT_BLOCK + 517
     config = kinget_mirror(n, 4, "sobol")
     runs = [
         run_study(config, RunOptions(jobs=1, keep_samples=n)),
-        run_study(config, RunOptions(jobs=1, keep_samples=n, chunk_size=streaming.STAT_BLOCK)),
-        run_study(config, RunOptions(jobs=2, keep_samples=n, chunk_size=2 * streaming.STAT_BLOCK)),
+        run_study(config, RunOptions(jobs=1, keep_samples=n, chunk_size=moments.STAT_BLOCK)),
+        run_study(config, RunOptions(jobs=2, keep_samples=n, chunk_size=2 * moments.STAT_BLOCK)),
     ]
     keys = ("measures", "yield", "sampling", "failed_solves")
     first = {k: runs[0].summary[k] for k in keys}

@@ -20,19 +20,11 @@ from mcmatch.run.chunks import monte_carlo, run_chunk
 from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.solve import fast
 from mcmatch.solve.newton import SOLVER_DEFAULTS
-from mcmatch.stats import streaming
+from mcmatch.stats import histogram, moments
 from mcmatch.stats.describe import describe
-from mcmatch.stats.streaming import (
-    ChunkReducer,
-    Grid,
-    Histogram,
-    HistogramPart,
-    Moments,
-    RunAccumulator,
-    block_moments,
-    block_starts,
-    fold_blocks,
-)
+from mcmatch.stats.histogram import Grid, Histogram, HistogramPart
+from mcmatch.stats.moments import Moments, block_moments, block_starts, fold_blocks
+from mcmatch.stats.streaming import ChunkReducer, RunAccumulator
 from mcmatch.studies.pipeline import RunOptions, run_study, spec_yields
 
 # A 1:4 NMOS mirror on invented, illustrative process values (not a foundry's); no corners, area or contributions,
@@ -96,7 +88,7 @@ contributions = false
 """
 
 #: More than the pilot block, so that later chunks are streamed and merged.
-STREAMED = BLOCK + 3 * streaming.STAT_BLOCK + 517
+STREAMED = BLOCK + 3 * moments.STAT_BLOCK + 517
 
 
 @pytest.fixture(scope="module")
@@ -162,8 +154,8 @@ def test_same_summary_for_any_chunk_size_and_worker_count(config):
     # Common practice, no source: same seed, same numbers, whatever the chunking or the number of workers.
     runs = [
         run_study(config, RunOptions(jobs=1, keep_samples=500)),
-        run_study(config, RunOptions(jobs=1, keep_samples=500, chunk_size=streaming.STAT_BLOCK)),
-        run_study(config, RunOptions(jobs=2, keep_samples=500, chunk_size=3 * streaming.STAT_BLOCK)),
+        run_study(config, RunOptions(jobs=1, keep_samples=500, chunk_size=moments.STAT_BLOCK)),
+        run_study(config, RunOptions(jobs=2, keep_samples=500, chunk_size=3 * moments.STAT_BLOCK)),
     ]
     keys = ("measures", "yield", "failed_solves", "failed_examples", "samples")
     first = {k: runs[0].summary[k] for k in keys}
@@ -270,7 +262,7 @@ def test_histogram_quantiles_within_one_bin_with_tails_and_coarsening(monkeypatc
     pilot = rng.standard_normal(2000)
     grid = Grid.from_pilot(pilot, bins=1024)
     data = rng.standard_t(2, 60_000)  # heavy tails: plenty of values beyond the pilot's range
-    monkeypatch.setattr(streaming, "OVERFLOW_CAP", 500)
+    monkeypatch.setattr(histogram, "OVERFLOW_CAP", 500)
     hist = Histogram(grid)
     for piece in np.array_split(data, 7):
         hist.add(HistogramPart.of(piece, grid))

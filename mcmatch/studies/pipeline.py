@@ -23,14 +23,9 @@ from mcmatch.run.loads import resolve_loads
 from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.compliance import compliance_block
 from mcmatch.stats.describe import describe
-from mcmatch.stats.streaming import (
-    HISTOGRAM_BINS,
-    STAT_BLOCK,
-    ChunkReducer,
-    Grid,
-    RunAccumulator,
-    sampling_summary,
-)
+from mcmatch.stats.histogram import HISTOGRAM_BINS, Grid
+from mcmatch.stats.moments import STAT_BLOCK
+from mcmatch.stats.streaming import ChunkReducer, RunAccumulator, sampling_summary
 from mcmatch.stats.yields import joint_passes, passes, yield_block
 
 if TYPE_CHECKING:
