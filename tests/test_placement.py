@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 
 from mcmatch.cli import main
+from mcmatch.config.analysis import Placement
 from mcmatch.config.loading import config_from_dict
-from mcmatch.config.schema import Placement
 from mcmatch.draws.placement import (
     cell_layout,
     count_warnings,

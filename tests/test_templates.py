@@ -12,7 +12,8 @@ import pytest
 
 from mcmatch.cli import main
 from mcmatch.config.loading import config_from_dict
-from mcmatch.config.templates import TEMPLATES, expand_template, unit_counts
+from mcmatch.config.templates import TEMPLATES, expand_template
+from mcmatch.config.topologies import unit_counts
 from mcmatch.errors import ConfigError
 from mcmatch.model.circuit import GMIN
 from mcmatch.model.devices import square_law

@@ -42,7 +42,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def execute(args: argparse.Namespace) -> int:
     from mcmatch.cli.options import check_overrides
-    from mcmatch.config.schema import Analysis
+    from mcmatch.config.analysis import Analysis
     from mcmatch.errors import ConfigError
     from mcmatch.run.bench import DEMO_CONFIG, run_bench
 

@@ -134,7 +134,8 @@ def _measure_table(measure: Measure) -> str:
 
 def _parameter_lines(name: str, polarity: str, supply: float) -> list[str]:
     """`key = value` lines of every template parameter, each under a comment saying what it means."""
-    from mcmatch.config.templates import DEFAULT_WIDTH, TEMPLATES, parameter_names, toml_value
+    from mcmatch.config.templates import TEMPLATES, parameter_names, toml_value
+    from mcmatch.config.topologies import DEFAULT_WIDTH
     from mcmatch.units import format_quantity
 
     model = TEMPLATES[name].parameters

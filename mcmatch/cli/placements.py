@@ -33,8 +33,8 @@ def _percent_or_si(value: float | None, unit: str) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from mcmatch.config.analysis import Analysis, Placement
     from mcmatch.config.loading import load_config
-    from mcmatch.config.schema import Analysis, Placement
     from mcmatch.results.folder import check_output_file
     from mcmatch.run.study import prepare
     from mcmatch.studies.extra import run_placements

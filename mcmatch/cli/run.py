@@ -72,8 +72,8 @@ def add_parser(
 
 def execute(args: argparse.Namespace) -> int:
     started = getattr(args, "started", None) or time.perf_counter()  # set by main(): the whole command is timed
+    from mcmatch.config.analysis import Analysis
     from mcmatch.config.loading import load_config
-    from mcmatch.config.schema import Analysis
     from mcmatch.results.atomic import write_run_folder
     from mcmatch.results.folder import check_run_target
     from mcmatch.results.tables import write_json, write_samples

@@ -7,20 +7,8 @@ from __future__ import annotations
 
 import difflib
 
-from mcmatch.config.schema import (
-    AUTO,
-    GROUND,
-    RESERVED_COLUMNS,
-    Analysis,
-    Limits,
-    Measure,
-    Netlist,
-    Placement,
-    SizingStudy,
-    Spec,
-    Technology,
-    terminals,
-)
+from mcmatch.config.analysis import Analysis, Placement, SizingStudy
+from mcmatch.config.schema import AUTO, GROUND, RESERVED_COLUMNS, Limits, Measure, Netlist, Spec, Technology, terminals
 from mcmatch.errors import ConfigError
 from mcmatch.units import UnitError, parse_quantity
 

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from mcmatch.config.schema import Analysis, Technology
+from mcmatch.config.analysis import Analysis
+from mcmatch.config.schema import Technology
 from mcmatch.errors import ConfigError
 
 

@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from mcmatch.config.schema import Placement
+from mcmatch.config.analysis import Placement
 
 
 @dataclass(frozen=True)

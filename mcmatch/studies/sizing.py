@@ -23,7 +23,8 @@ from typing import Any
 
 import numpy as np
 
-from mcmatch.config.schema import Config, Netlist, SizingStudy
+from mcmatch.config.analysis import SizingStudy
+from mcmatch.config.schema import Config, Netlist
 from mcmatch.draws.mismatch import normal_source
 from mcmatch.draws.process import PROCESS_DIMS
 from mcmatch.errors import SolveError
