@@ -137,7 +137,9 @@ def execute(args: argparse.Namespace) -> int:
     y = s["yield"]
     if not args.quiet:
         print(f"{s['title']}: {s['samples']} samples, {s['failed_solves']} failed solves")
-        print(f"  variation {config.analysis.variation}: {VARIATION_TEXT[config.analysis.variation]}")
+        from mcmatch.config.analysis import VARIATION_MODES
+
+        print(f"  variation {config.analysis.variation}: {VARIATION_MODES[config.analysis.variation]}")
         for name, m in s["measures"].items():
             print(
                 f"  {name:>16}: nominal {_num(m['nominal'], '.6g')}  mean {_num(m['mean'], '.6g')}  "
@@ -151,11 +153,6 @@ def execute(args: argparse.Namespace) -> int:
 
 
 #: What each [analysis] variation mode draws per sample (die), for the console.
-VARIATION_TEXT = {
-    "local": "per-device mismatch only",
-    "global": "global process spread only (one draw per die)",
-    "both": "per-device mismatch plus global process spread (one draw per die)",
-}
 
 
 def _progress(bar: Any, samples: int) -> None:

@@ -9,6 +9,14 @@ from pydantic import Field, model_validator
 
 from mcmatch.config.fields import Frozen, Name, Number, Q
 
+#: What each ``[analysis] variation`` mode draws per sample (one sample is one die), in the words the console and
+#: the report use.
+VARIATION_MODES = {
+    "local": "per-device mismatch only (no die-to-die process spread; corners cover the process)",
+    "global": "die-to-die process spread only (no per-device mismatch)",
+    "both": "per-device mismatch plus die-to-die process spread, one draw per die",
+}
+
 
 # --------------------------------------------------------------------------------------------- analysis
 class Target(Frozen):

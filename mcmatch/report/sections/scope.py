@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
+from mcmatch.config.analysis import VARIATION_MODES
 from mcmatch.report.format import celsius, eng, finite, percent
 from mcmatch.report.sections.sizing import sizing_scope
 from mcmatch.report.targets import corner_label
@@ -62,20 +63,12 @@ def conditions_text(summary: dict) -> str:
     )
 
 
-#: What each [analysis] variation mode draws per sample (die).
-VARIATION_WORDS = {
-    "local": "per-device mismatch only (no die-to-die process spread; corners cover the process)",
-    "global": "die-to-die process spread only (no per-device mismatch)",
-    "both": "per-device mismatch plus die-to-die process spread, one draw per die",
-}
-
-
 def variation_text(summary: dict) -> str:
     """Which variation each sample draws (summary["variation"]; absent: local mismatch), with the linearised split of
     the spread of the first measures when a global part was drawn."""
     block = summary.get("variation") if isinstance(summary.get("variation"), Mapping) else {}
     mode = str(block.get("mode", "local"))
-    text = f"Variation: {VARIATION_WORDS.get(mode, mode)}."
+    text = f"Variation: {VARIATION_MODES.get(mode, mode)}."
     measures = block.get("measures") if isinstance(block.get("measures"), Mapping) else {}
     units = {k: (v.get("unit") or "") for k, v in (summary.get("measures") or {}).items() if isinstance(v, Mapping)}
     parts = []
