@@ -17,13 +17,9 @@ import numpy as np
 from mcmatch.draws.mismatch import BLOCK, normal_source
 from mcmatch.draws.process import process_draws
 from mcmatch.run.allocator import tune_allocator
-from mcmatch.run.pool import THRESHOLD, local_map, startup_seconds, threshold
+from mcmatch.run.pool import local_map, startup_seconds, threshold
 from mcmatch.run.study import Study, solve_samples_t
 from mcmatch.solve.fast import FAST_BATCH
-
-#: Below this many samples a run stays in-process: starting a pool costs more than it saves on 2 cores (run/pool.py:
-#: start-up and threshold per pool; forked workers pay from about 2e6 simple-mirror samples).
-POOL_THRESHOLD = THRESHOLD["fork"]
 
 #: Chunk lengths are multiples of this (a divisor of the random BLOCK): the streamed statistics fold per block of it.
 CHUNK_QUANTUM = 8192

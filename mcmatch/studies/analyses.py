@@ -15,7 +15,8 @@ from mcmatch.config.schema import Config
 from mcmatch.errors import SolveError
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
-from mcmatch.run.chunks import POOL_THRESHOLD, monte_carlo
+from mcmatch.run.chunks import monte_carlo
+from mcmatch.run.pool import threshold
 from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.area import (
     SEARCH_SPAN,
@@ -49,9 +50,9 @@ class Options(Protocol):
 
 
 def _mc(study: Study, samples: int, options: Options | None) -> dict[str, np.ndarray]:
-    """Monte Carlo of one condition; runs below the engine's pool threshold stay in-process (a pool costs more than it
-    saves there), whatever the options say. The numbers are the same either way (block-seeded draws)."""
-    if samples < POOL_THRESHOLD:
+    """Monte Carlo of one condition; runs below the selected pool's threshold (run.pool.THRESHOLD) stay in-process (a
+    pool costs more than it saves there), whatever the options say. The numbers are the same either way."""
+    if samples < threshold():
         return monte_carlo(study, samples, jobs=1)
     return monte_carlo(study, samples, jobs=getattr(options, "jobs", None), backend=getattr(options, "backend", None))
 
