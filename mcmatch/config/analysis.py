@@ -72,7 +72,7 @@ class Bank(Frozen):
 class SizingStudy(Frozen):
     """[analysis.sizing]: W and L of device groups for the joint-yield target under a headroom limit (SI units)."""
 
-    groups: dict[Name, list[Name]] | None = None  # devices sharing one unit W and L; default: equal W and L
+    groups: dict[Name, list[Name]] | None = None  # devices scaled together, sizes kept relative; default: by polarity
     w: list[Q("m")] = Field(min_length=2, max_length=2)  # search range of the unit W [m]
     l: list[Q("m")] = Field(min_length=2, max_length=2)  # noqa: E741 - search range of the unit L [m]
     min_headroom: Q("V") = Field(default=0.05, ge=-10, le=10)  # Vds - Vdsat of every device at every corner [V]

@@ -67,10 +67,11 @@ class Point:
 
 
 def default_groups(netlist: Netlist) -> dict[str, list[str]]:
-    """Devices of one polarity drawn with the same W and L share a unit (a mirror's m keeps its ratios)."""
-    groups: dict[tuple, list[str]] = {}
+    """The devices of one polarity form one group: they scale together, each keeping its drawn W and L relative to
+    the group's first device (a wide-swing bias device stays 1/4 of the unit's W/L, a mirror's m keeps its ratio)."""
+    groups: dict[str, list[str]] = {}
     for m in netlist.mosfet:
-        groups.setdefault((m.type, m.w, m.l), []).append(m.name)
+        groups.setdefault(m.type, []).append(m.name)
     names = ["unit"] if len(groups) == 1 else [f"unit{k}" for k in range(1, len(groups) + 1)]
     return dict(zip(names, groups.values(), strict=True))
 
@@ -102,10 +103,14 @@ class Evaluator:
         self.solves = 0
 
     def netlist(self, aspects: tuple[float, ...], area: float) -> Netlist:
+        """The circuit with each group's first device at W/L `aspect` and W L `area` [m^2]; every other member keeps
+        its drawn W and L relative to that first device."""
+        drawn = {m.name: (m.w, m.l) for m in self.config.circuit.mosfet}
         sizes = {}
         for aspect, names in zip(aspects, self.groups.values(), strict=True):
             w, l = arith.width_length(aspect, area)  # noqa: E741
-            sizes.update({name: (w, l) for name in names})
+            w0, l0 = drawn[names[0]]
+            sizes.update({name: (w * drawn[name][0] / w0, l * drawn[name][1] / l0) for name in names})
         devices = [
             m.model_copy(update={"w": sizes[m.name][0], "l": sizes[m.name][1]}) if m.name in sizes else m
             for m in self.config.circuit.mosfet
