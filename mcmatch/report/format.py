@@ -88,13 +88,13 @@ def celsius(kelvin: object) -> str:
 
 
 def sigma_equivalent(fraction: object) -> str:
-    """Two-sided normal-equivalent of a yield: 0.9973 -> "±3.00 sigma"."""
+    """Two-sided normal-equivalent of a yield: 0.9973 -> "±3.00 sigma two-sided" (the high-sigma section is one-sided)."""
     v = finite(fraction)
     if v is None or v <= 0:
         return "\u2013"
     if v >= 1:
         return "no failing sample"
-    return f"\u00b1{NormalDist().inv_cdf(0.5 + v / 2):.2f} sigma"
+    return f"\u00b1{NormalDist().inv_cdf(0.5 + v / 2):.2f} sigma two-sided"
 
 
 def limits_text(limits: Mapping | None, unit: str, shown: Callable[[object], str] | None = None) -> str:

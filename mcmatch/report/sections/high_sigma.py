@@ -35,11 +35,33 @@ def high_sigma_table(summary: dict) -> dict | None:
             ("failure probability", "num"),
             ("95 % interval", "num"),
             ("effective samples", "num"),
-            ("sigma level", "num"),
+            ("sigma level (one-sided)", "num"),
         ],
         rows,
         "High-sigma estimate of the failure probability (importance sampling)",
     )
+
+
+def high_sigma_scope(summary: dict) -> list[str]:
+    """One line per measure of the high-sigma estimate for the verdict's scope: its failure probability, interval and
+    one-sided sigma level; empty when none was run."""
+    hs = summary.get("high_sigma")
+    lines = []
+    for name, h in hs.items() if isinstance(hs, Mapping) else []:
+        if not isinstance(h, Mapping):
+            continue
+        if h.get("fail_probability") is None:
+            lines.append(f"High-sigma estimate of {name}: {h.get('error') or h.get('note') or 'not available'}.")
+            continue
+        samples = h.get("samples")
+        lines.append(
+            f"High-sigma estimate of {name} (importance sampling"
+            + (f", {samples:,} samples" if isinstance(samples, int) else "")
+            + f"): failure probability {_probability(h.get('fail_probability'))} (95 % interval "
+            f"{_probability(_pick(h.get('ci95'), 0))} \u2026 {_probability(_pick(h.get('ci95'), 1))}), "
+            f"{plain(h.get('sigma_level'), 3)} sigma one-sided."
+        )
+    return lines
 
 
 def _pick(seq: object, i: int) -> object:

@@ -7,6 +7,7 @@ from collections.abc import Mapping
 
 from mcmatch.config.analysis import VARIATION_MODES
 from mcmatch.report.format import celsius, eng, finite, percent
+from mcmatch.report.sections.high_sigma import high_sigma_scope
 from mcmatch.report.sections.sizing import sizing_scope
 from mcmatch.report.targets import corner_label
 
@@ -155,6 +156,7 @@ def scope_lines(summary: dict) -> list[dict]:
         more = len(warnings) - MAX_WARNINGS + 1
         warnings = [*warnings[: MAX_WARNINGS - 1], f"\u2026 and {more} more warnings: see the operating point."]
     lines += [_line(*CAUTION, w) for w in warnings]
+    lines += [_line("SCOPE", "", text) for text in high_sigma_scope(summary)]
     sizing = sizing_scope(summary)
     if sizing:
         feasible = isinstance((summary.get("sizing") or {}).get("chosen"), Mapping)
