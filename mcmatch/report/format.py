@@ -88,7 +88,7 @@ def celsius(kelvin: object) -> str:
 
 
 def sigma_equivalent(fraction: object) -> str:
-    """Two-sided normal-equivalent of a yield: 0.9973 -> "±3.00 sigma two-sided" (the high-sigma section is one-sided)."""
+    """Two-sided normal-equivalent of a yield: 0.9973 -> "±3.00 sigma two-sided" (high-sigma levels are one-sided)."""
     v = finite(fraction)
     if v is None or v <= 0:
         return "\u2013"

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import eng, finite, fixed, interval_text, plain, yield_text
+from mcmatch.report.format import eng, finite, fixed, interval_text, percent, plain, yield_text
 from mcmatch.report.tables import cell, num, row, table
 
 UM2 = "\u00b5m\u00b2"
@@ -177,13 +177,20 @@ def sizing_section(summary: dict, figures: bool) -> dict | None:
         "figure": figure,
         "method": sz.get("method", ""),
         "target": f"{yield_text((sz.get('target') or {}).get('yield'))} at "
-        f"{plain((sz.get('target') or {}).get('confidence'), 3)} confidence",
+        f"{percent((sz.get('target') or {}).get('confidence'), 3)} confidence",
         "min_headroom": eng(limit, "V"),
         "max_area": fixed(sz.get("max_area"), 1e12, UM2) if sz.get("max_area") is not None else "none",
-        "conditions": len(sz.get("conditions") or []),
+        "conditions": _conditions_text(sz.get("conditions") or []),
         "designs": len(designs),
         "solves": sz.get("solves"),
     }
+
+
+def _conditions_text(conditions: list) -> str:
+    """Where the headroom limit holds: "tt/27 degC only" or "each of the 16 conditions"."""
+    if len(conditions) == 1:
+        return f"{conditions[0]} only"
+    return f"each of the {len(conditions)} conditions"
 
 
 def _answer_class(feasible: bool, conf: Mapping, target: object) -> str:
