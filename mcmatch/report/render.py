@@ -19,7 +19,7 @@ from mcmatch.report import template
 from mcmatch.report.format import celsius, eng, percent, yield_text
 from mcmatch.report.sections.area import area_section
 from mcmatch.report.sections.assumptions import assumptions
-from mcmatch.report.sections.bank import bank_table
+from mcmatch.report.sections.bank import bank_section
 from mcmatch.report.sections.circuit import circuit_section
 from mcmatch.report.sections.contributions import contributions_section
 from mcmatch.report.sections.corners import corners_section
@@ -113,7 +113,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "placements": placements_table(summary, keys),
         "placement_drawing": placement_drawing(summary),
         "high_sigma": high_sigma_table(summary),
-        "bank": bank_table(summary),
+        "bank": bank_section(summary, figures),
         "variation": variation_table(summary),
         "failed": failed_section(summary),
         "assumptions": assumptions(summary, config),
