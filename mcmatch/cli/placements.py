@@ -87,5 +87,13 @@ def execute(args: argparse.Namespace) -> int:
             f"    {'yield':>16}: {y['fraction']:.5f} (95 % CI {y['ci95'][0]:.5f} .. {y['ci95'][1]:.5f}, "
             f"{y['passed']}/{y['total']})"
         )
+        paired = entry.get("versus_best")
+        if paired and paired.get("difference") is not None:
+            lo, hi = paired["ci95"]
+            print(
+                f"    {'vs ' + paired['best']:>16}: {100.0 * paired['difference']:+.3f} % yield "
+                f"(paired, 95 % CI {100.0 * lo:+.3f} .. {100.0 * hi:+.3f} %; {paired['only_this']} samples pass "
+                f"only here, {paired['only_other']} only there)"
+            )
     print(f"\nbest: {best}" if best is not None else "\nbest: none (no candidate could be solved)")
     return 0

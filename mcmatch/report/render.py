@@ -27,7 +27,7 @@ from mcmatch.report.sections.distributions import distributions
 from mcmatch.report.sections.high_sigma import high_sigma_table
 from mcmatch.report.sections.measures import measures_table, sampling_section, sampling_text
 from mcmatch.report.sections.operating_point import nodes_table, operating_point_tables
-from mcmatch.report.sections.placements import placement_drawing, placements_table
+from mcmatch.report.sections.placements import placement_drawing, placement_note, placements_table
 from mcmatch.report.sections.sizing import sizing_section
 from mcmatch.report.sections.variation import variation_table
 from mcmatch.report.sections.verdict import header_items, verdict_section
@@ -112,6 +112,7 @@ def build_context(summary: dict, table: pd.DataFrame | None, config_text: str, f
         "contributions": contrib,
         "placements": placements_table(summary, keys),
         "placement_drawing": placement_drawing(summary),
+        "placement_notes": placement_note(summary, keys) if summary.get("placements") else [],
         "high_sigma": high_sigma_table(summary),
         "bank": bank_section(summary, figures),
         "variation": variation_table(summary),

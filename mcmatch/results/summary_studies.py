@@ -218,6 +218,17 @@ class PlacementLayout(Block):
     origin: str = Field(description='"center" or "corner"')
 
 
+class PlacementVersusBest(Block):
+    """This candidate's joint yield minus the best candidate's, paired on the same samples."""
+
+    best: str = Field(description="name of the best candidate")
+    difference: float | None = Field(description="yield here minus yield of the best [1]")
+    ci95: list[float] = Field(description="Newcombe paired score interval of the difference (95 %) [1]")
+    only_this: int = Field(description="samples that pass here and fail with the best")
+    only_other: int = Field(description="samples that pass with the best and fail here")
+    samples: int = Field(description="paired samples")
+
+
 class PlacementEntry(Block):
     """One [[placement.candidate]]."""
 
@@ -233,6 +244,7 @@ class PlacementEntry(Block):
     samples: int | None = Field(None, description="Monte Carlo samples")
     failed_solves: int | None = Field(None, description="samples whose solve failed")
     error: str | None = Field(None, description="no operating point with the gradients")
+    versus_best: PlacementVersusBest | None = Field(None, description="paired yield difference to the best candidate")
 
 
 # --------------------------------------------------------------------------------------------- high sigma

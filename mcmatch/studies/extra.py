@@ -33,7 +33,7 @@ from mcmatch.stats import high_sigma as hs
 from mcmatch.stats.bank import bank_yield, channel_passes, mean_correlation
 from mcmatch.stats.describe import describe
 from mcmatch.stats.distributions import normal_sf
-from mcmatch.stats.yields import joint_passes, yield_block
+from mcmatch.stats.yields import joint_passes, paired_difference, yield_block
 from mcmatch.studies.analyses import _mc
 
 #: Random stream of the per-die gradient draws of Pelgrom's distance term (device draws keep the main stream).
@@ -94,6 +94,7 @@ def run_placements(
     names = study.device_names
     units = {m.name: m.m for m in config.circuit.mosfet}
     entries = []
+    joints: dict[str, np.ndarray] = {}
     for candidate in placement.candidate:
         shifts = device_shifts(candidate.rows, placement)
         vth, scale = shift_arrays(shifts, names)
@@ -139,8 +140,14 @@ def run_placements(
         entry["samples"] = int(converged.size)
         entry["failed_solves"] = int((~converged).sum())
         entries.append(entry)
+        joints[candidate.name] = joint
     first = next(iter(config.specs), None) or next(iter(config.measures), None)
-    return entries, pick_best(entries, first)
+    best = pick_best(entries, first)
+    for entry in entries:  # common random numbers: the difference to the best is paired, sample by sample
+        if best is not None and entry["name"] != best and entry["name"] in joints:
+            paired = paired_difference(joints[entry["name"]], joints[best])
+            entry["versus_best"] = {"best": best, **paired}
+    return entries, best
 
 
 # --------------------------------------------------------------------------------------------- high sigma
