@@ -184,6 +184,29 @@ def test_worst_corner_is_smallest_sigma_margin_or_largest_spread():
     assert worst["b"]["criterion"] == CRITERION_SPREAD
 
 
+def test_a_spread_that_does_not_depend_on_the_supply_is_worst_at_any_supply():
+    # common practice, no source: a measure identical at every supply of the worst process/temperature (a current
+    # reference the supply does not reach) has no single worst supply; the summary names "any supply"
+    def entry(process, supply, std):
+        return {
+            "process": process,
+            "temperature": 233.15,
+            "supply": supply,
+            "measures": {"b": {"mean": 1.0, "std": std}},
+            "samples": 100,
+            "failed_solves": 0,
+        }
+
+    entries = [entry(p, v, 0.2 if p == "ff" else 0.1) for p in ("tt", "ff") for v in (1.62, 1.8, 1.98)]
+    worst = worst_corners(entries, {"b": {"nominal": 1.0}}, {})
+    assert worst["b"]["process"] == "ff" and worst["b"]["value"] == pytest.approx(0.6)
+    assert [(t["process"], t["supply"]) for t in worst["b"]["tied"]] == [("ff", 1.62), ("ff", 1.8), ("ff", 1.98)]
+    assert worst["b"]["label"] == "ff, -40 degC, any supply"
+    # a spread larger by one part in a million is not a tie
+    entries[4]["measures"]["b"]["std"] = 0.2 * (1 + 1e-6)
+    assert "tied" not in worst_corners(entries, {"b": {"nominal": 1.0}}, {})["b"]
+
+
 def test_corners_within_sampling_error_are_reported_together():
     # common practice, no source: margins 2.00 and 2.03 sigma from 200 samples each (standard error about 0.12)
     # cannot be told apart; 2.6 sigma can (about 3.4 combined standard errors away)

@@ -260,6 +260,44 @@ def test_corner_spread_draws_every_corner_or_says_how_many():
     assert "err at the first 9 of 50 corners and the worst" in caption
 
 
+def test_worst_corner_table_names_each_measures_corner_and_marks_its_own_cells():
+    # issue 16 item 3 (common practice, no source): one row per measure with its worst corner, the value that made it
+    # the worst, the criterion, ties named together; in the full table only that measure's cells are marked
+    s = base_summary()
+    s["measures"]["i_out"] = {"unit": "A", "nominal": 2e-5, "mean": 2e-5, "std": 4e-7}
+    s["corners"] = [
+        {
+            "process": p,
+            "temperature": 233.15,
+            "supply": v,
+            "measures": {"err": {"mean": 0.001 * k, "std": 0.002}, "i_out": {"mean": 2e-5, "std": 4e-7 * (1 + k)}},
+        }
+        for k, (p, v) in enumerate([("tt", 1.62), ("tt", 1.98), ("ss", 1.62), ("ss", 1.98)])
+    ]
+    s["corners_worst"] = {
+        "err": {
+            "process": "ss", "temperature": 233.15, "supply": 1.98, "value": 1.8, "margin_sigma": 1.8,
+            "margin_error": 0.03, "limit": "max", "spec_yield": 0.964, "criterion": "smallest spec margin",
+            "tied": [{"process": "ss", "temperature": 233.15, "supply": v, "margin_sigma": 1.8} for v in (1.62, 1.98)],
+            "label": "ss, -40 degC, any supply",
+        },
+        "i_out": {"process": "tt", "temperature": 233.15, "supply": 1.62, "value": 1.2e-6, "criterion": "spread"},
+    }  # fmt: skip
+    html = render_report(s, None, "")
+    text = sections(html)["corners"]
+    assert "Worst corner per measure" in text
+    assert "err ss, -40 °C, any supply (2 corners within sampling error) 1.8 sigma ± 0.03" in text
+    assert "smallest spec margin (upper limit)" in text and "96.4 %" in text
+    assert "i_out tt, -40 °C, 1.62 V 1.2 µA" in text
+    # markers: the err mean and sigma cells of the ss/1.98 V row, nothing else (i_out has no spec, so the full table
+    # shows no column of it; its worst corner is in the small table only)
+    table = html[html.find('<table class="corners">') :]
+    table = table[: table.find("</table>")]
+    rows = re.findall(r"<tr>(.*?)</tr>", table, flags=re.S)[1:]
+    marked = [[i for i, c in enumerate(re.findall(r"<td[^>]*>", r)) if "worst-cell" in c] for r in rows]
+    assert marked == [[], [], [], [3, 4]]
+
+
 def test_svg_scales_and_ticks():
     from mcmatch.report.svg import Scale, log_ticks, nice_ticks, tick_labels
 

@@ -22,12 +22,13 @@ class Compliance(Block):
 
 
 class TiedCorner(Block):
-    """A corner within sampling error of the worst one."""
+    """A corner as bad as the worst one: within sampling error of its margin, or with the same spread."""
 
     process: str = Field(description="global process corner")
     temperature: float = Field(description="temperature [K]")
     supply: float | None = Field(description="supply [V]")
-    margin_sigma: float | None = Field(description="its spec margin [sigma]")
+    margin_sigma: float | None = Field(None, description="its spec margin [sigma] (spec'd measures)")
+    spread: float | None = Field(None, description="its spread, equal to the worst's to rounding [unit] (others)")
 
 
 class VariationMeasure(Block):

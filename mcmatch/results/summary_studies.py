@@ -63,7 +63,9 @@ class WorstCorner(Block):
     mean: float | None = Field(None, description="the corner's mean [unit]")
     std: float | None = Field(None, description="the corner's std [unit]")
     spec_yield: float | None = Field(None, description="the corner's spec yield [1]")
-    tied: list[TiedCorner] | None = Field(None, description="corners within two combined standard errors")
+    tied: list[TiedCorner] | None = Field(
+        None, description="corners within two combined standard errors of the margin, or with the same spread"
+    )
     label: str | None = Field(None, description='the tied corners named together, e.g. "ss, -40 degC, any supply"')
 
 

@@ -124,8 +124,9 @@ def worst_corners(entries: list[dict], main_measures: dict, specs: dict[str, Lim
     (:mod:`mcmatch.stats.margins`), else the largest spread; grid points with an error are skipped.
 
     For a spec'd measure, `value` is that margin [sigma]; `tied` lists every corner within sampling error of it
-    (TIE_SIGMAS combined standard errors), `label` names them together. main_measures: summary["measures"] (each
-    measure's main nominal, for the spread).
+    (TIE_SIGMAS combined standard errors), `label` names them together. For a spread, `tied` and `label` name the
+    corners with the same spread to rounding (a supply the measure does not depend on). main_measures:
+    summary["measures"] (each measure's main nominal, for the spread).
     """
     out: dict[str, dict] = {}
     ok_entries = [e for e in entries if "error" not in e]
@@ -147,7 +148,16 @@ def worst_corners(entries: list[dict], main_measures: dict, specs: dict[str, Lim
             continue
         s = spread(best["measures"].get(name, {}), nominal)
         out[name] = {**point_keys_of(best), "value": s, "criterion": CRITERION_SPREAD, "spread": s}
+        same = [e for e in ok_entries if _same_spread(spread(e["measures"].get(name, {}), nominal), s)]
+        if len(same) > 1:  # e.g. a supply the measure does not depend on: every supply is as bad
+            out[name]["tied"] = [{**point_keys_of(e), "spread": spread(e["measures"][name], nominal)} for e in same]
+            out[name]["label"] = group_label([point_keys_of(e) for e in same], grid)
     return out
+
+
+def _same_spread(a: float | None, b: float | None) -> bool:
+    """Equal spreads to rounding (1e-9 relative): corners whose statistics do not differ at all, not within noise."""
+    return a is not None and b is not None and abs(a - b) <= 1e-9 * max(abs(a), abs(b), 1e-300)
 
 
 def point_keys_of(entry: dict) -> dict:

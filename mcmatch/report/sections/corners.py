@@ -55,9 +55,11 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             continue
         for m in shown:
             stats_m = (c.get("measures") or {}).get(m, {})
+            mark = " worst-cell" if worst.get(m) == i else ""  # the marker sits on the measure it belongs to
+            title = f"worst corner of {m}" if mark else ""
             cells += [
-                num(units[m](stats_m.get("mean"), with_unit=False)),
-                num(units[m](stats_m.get("std"), with_unit=False)),
+                cell(units[m](stats_m.get("mean"), with_unit=False), "num" + mark, title),
+                cell(units[m](stats_m.get("std"), with_unit=False), "num" + mark, title),
             ]
         if has_yield:
             y = c.get("yield") or {}
@@ -71,7 +73,7 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             cells.append(_headroom_cell(c.get("compliance"), volts))
         note = f"\u25c0 worst: {', '.join(worst_of[i])}" if i in worst_of else ""
         cells.append(cell(note, "worst-note" if note else ""))
-        rows.append(row(cells, "worst" if i in worst_of else ""))
+        rows.append(row(cells))
     figs = []
     if figures:
         from mcmatch.report import figures as plots
@@ -110,6 +112,7 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
     samples = {c.get("samples") for c in corners if c.get("samples")}
     return {
         "table": table(columns, rows, "Process \u00d7 temperature \u00d7 supply corners", "corners"),
+        "worst": worst_table(summary, shown, units),
         "figures": figs,
         "samples": ", ".join(f"{s:,}" for s in sorted(samples)),
         "criteria": sorted(
@@ -120,6 +123,66 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             }
         ),
     }
+
+
+def _criterion(w: Mapping) -> str:
+    """The rule that picked the worst corner, in a few words."""
+    if finite(w.get("margin_sigma")) is not None:
+        side = {"min": "lower", "max": "upper"}.get(str(w.get("limit")), "")
+        return f"smallest spec margin ({side} limit)".replace(" ()", "")
+    return "largest |mean \u2212 nominal| + 3 sigma"
+
+
+def worst_table(summary: dict, shown: list[str], units: Mapping[str, DisplayUnit]) -> dict | None:
+    """One row per measure: its worst corner (ties named as "any supply" and counted), the value that made it the
+    worst (the spec margin in sigma, or the spread in the measure's unit), mean and sigma there, and the spec yield."""
+    worst = summary.get("corners_worst") or {}
+    order = [*shown, *[m for m in summary.get("measures") or {} if m not in shown]]
+    names = [m for m in order if isinstance(worst.get(m), Mapping)]
+    if not names:
+        return None
+    corners = summary.get("corners") or []
+    units = {**{m: DisplayUnit(_values(corners, m), spec_unit(summary, m)) for m in names}, **units}
+    at = worst_indices(summary)
+    rows = []
+    for m in names:
+        w = worst[m]
+        tied = [t for t in w.get("tied") or [] if isinstance(t, Mapping)]
+        label = str(w.get("label") or corner_label(w)).replace(" degC", " \u00b0C")
+        if len(tied) > 1:
+            alike = "within sampling error" if finite(w.get("margin_sigma")) is not None else "with the same value"
+            label += f" ({len(tied)} corners {alike})"
+        stats_m = ((corners[at[m]].get("measures") or {}).get(m) or {}) if m in at else {}
+        margin = finite(w.get("margin_sigma"))
+        if margin is not None:
+            error = finite(w.get("margin_error"))
+            value = f"{margin:.3g} sigma" + (f" \u00b1 {error:.2g}" if error is not None else "")
+        else:
+            value = units[m](w.get("value")) if m in units else eng(w.get("value"))
+        spec_yield = finite(w.get("spec_yield"))
+        rows.append(
+            row(
+                [
+                    cell(m, "name"),
+                    cell(label),
+                    num(value),
+                    num(units[m](stats_m.get("mean")) if m in units else "\u2013"),
+                    num(units[m](stats_m.get("std")) if m in units else "\u2013"),
+                    num(percent(spec_yield, 4) if spec_yield is not None else "\u2013"),
+                    cell(_criterion(w)),
+                ]
+            )
+        )
+    columns = [
+        "measure",
+        "worst corner",
+        ("value", "num"),
+        ("mean there", "num"),
+        ("sigma there", "num"),
+        ("spec yield there", "num"),
+        "criterion",
+    ]
+    return table(columns, rows, "Worst corner per measure")
 
 
 def _values(corners: list, measure: str) -> list:
