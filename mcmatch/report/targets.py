@@ -80,7 +80,8 @@ def key_measures(summary: dict) -> list[str]:
 
 
 def tail_measures(summary: dict, keys: list[str]) -> list[str]:
-    """The key measures whose tails are drawn: lowest spec yield first (then lowest Cpk), at most MAX_KEY_MEASURES."""
+    """The key measures whose tails are drawn, lowest spec yield first (then lowest Cpk): every measure with a spec,
+    or, with no spec at all, the first MAX_KEY_MEASURES."""
     blocks = (summary.get("yield") or {}).get("specs") or {}
 
     def rank(name: str) -> tuple[float, float]:
@@ -89,4 +90,7 @@ def tail_measures(summary: dict, keys: list[str]) -> list[str]:
         cpk = finite(block.get("cpk"))
         return (1.0 if fraction is None else fraction, math.inf if cpk is None else cpk)
 
-    return sorted(keys, key=rank)[:MAX_KEY_MEASURES]
+    ranked = sorted(keys, key=rank)
+    specs = summary.get("specs") or {}
+    spec_d = [m for m in ranked if m in specs]
+    return spec_d or ranked[:MAX_KEY_MEASURES]
