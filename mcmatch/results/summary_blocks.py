@@ -209,3 +209,8 @@ class RunInfo(Block):
     python: str = Field(description="Python version")
     machine: str = Field(description="system, architecture and host name")
     run_time_s: float = Field(description="time of the whole study [s]")
+    command_time_s: float | None = Field(
+        None,
+        description="the whole command from its process start (interpreter and imports included) to the results "
+        "written, the report's own rendering excluded [s]; absent when the study ran from Python",
+    )

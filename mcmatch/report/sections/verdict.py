@@ -179,13 +179,17 @@ def header_items(summary: dict) -> list[tuple[str, str, str]]:
         date = datetime.fromisoformat(started).strftime("%Y-%m-%d %H:%M UTC") if started else "\u2013"
     except ValueError:
         date = str(started)
-    seconds = finite(run.get("run_time_s"))
+    seconds, study = finite(run.get("command_time_s")), finite(run.get("run_time_s"))
+    if seconds is not None:
+        run_time = f"{seconds:.3g} s (whole command)" + (f"; study {study:.3g} s" if study is not None else "")
+    else:
+        run_time = f"{study:.3g} s (study only)" if study is not None else "\u2013"
     items = [
         ("Run date", date, ""),
         ("mcmatch", str(run.get("mcmatch_version", "\u2013")), ""),
         ("Samples", f"{summary.get('samples', 0):,}", ""),
         ("Seed", str(summary.get("seed", "\u2013")), ""),
-        ("Run time", f"{seconds:.3g} s" if seconds is not None else "\u2013", ""),
+        ("Run time", run_time, ""),
         ("Machine", str(run.get("machine", "\u2013")), ""),
         ("Python", str(run.get("python", "\u2013")), ""),
         ("Technology", str(run.get("technology") or (summary.get("technology") or {}).get("name", "\u2013")), ""),
