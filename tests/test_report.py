@@ -497,6 +497,9 @@ def test_engineering_units():
     assert yield_text(0.9835) == "98.3 %" or yield_text(0.9835) == "98.4 %"  # two digits of the 1.65 % failures
     assert yield_text(0.99987) == "99.987 %"
     assert yield_text(0.9999999) != "100.0 %"  # a yield below one never prints as 100 %
+    # and a yield above zero never as 0.0 %: two digits of a small yield (2 of 20,000 is 0.010 %)
+    assert yield_text(2 / 20000) == "0.010 %" and yield_text(1.2e-5) == "0.0012 %" and yield_text(0.009) == "0.90 %"
+    assert yield_text(3e-9) == "< 0.0001 %" and yield_text(0.0) == "0 %" and yield_text(0.304) == "30.4 %"
 
 
 def test_plot_functions_take_and_return_axes():

@@ -230,7 +230,7 @@ def test_contributions_table_has_one_unit_per_column_and_folds_small_terms():
     text = sections(render_report(s, None, ""))["contributions"]
     # contributions 1.121 mV and 224.6 uV in one column unit (mV); zero terms folded (common practice, no source)
     assert "contribution to sigma [mV]" in text and "1.121" in text and "0.2246" in text and "224.6" not in text
-    assert "others (2 terms)" in text and "0 V" not in text
+    assert "others (2 terms)" in text and "2 smaller terms" in text and "0 V" not in text
     # sensitivity per parameter unit: 0.9965 V/V is 996.5 uV per mV; -0.08984 V per unit is -898.4 uV per %
     assert "sensitivity [\u00b5V per parameter unit]" in text and "996.5" in text and "-898.4" in text
 
@@ -360,3 +360,51 @@ def test_scope_says_which_variation_each_sample_draws():
     assert "mismatch plus die-to-die" in text
     assert "v_nb std 1.14 mV local, 15.2 mV global" in text
     assert "err std" in text and "%" in text
+
+
+def test_a_bank_corner_table_keeps_four_measure_columns_and_says_which():
+    # review of the 16-channel sizing report (common practice, no source): 16 measures x mean and sigma made the full
+    # corner table scroll sideways; it keeps the 3 with the lowest spec yield at their worst corner, says so, and the
+    # worst-corner table still names all 16
+    from mcmatch.report.sections.corners import MAX_CORNER_MEASURES
+
+    s = base_summary()
+    names = [f"err{i}" for i in range(1, 9)]
+    s["measures"] = {n: {"unit": "1", "nominal": 0.0, "mean": 0.0, "std": 0.002} for n in names}
+    s["specs"] = {n: {"min": -0.01, "max": 0.01} for n in names}
+    block = s["yield"]["specs"].pop("err")
+    s["yield"]["specs"] = {n: dict(block) for n in names}
+    s["corners"] = [
+        {"process": p, "temperature": 300.15, "supply": 1.8, "measures": {n: {"mean": 0.0, "std": 2e-3} for n in names}}
+        for p in ("tt", "ss")
+    ]
+    spec_yield = {n: 0.99 - 0.01 * ((i * 5) % 8) for i, n in enumerate(names)}  # lowest: err2, err7, err4, err1
+    s["corners_worst"] = {
+        n: {"process": "ss", "temperature": 300.15, "supply": 1.8, "margin_sigma": 2.0, "spec_yield": spec_yield[n]}
+        for n in names
+    }
+    html = render_report(s, None, "")
+    text = sections(html)["corners"]
+    lowest = sorted(names, key=spec_yield.get)[:MAX_CORNER_MEASURES]
+    kept = [n for n in names if n in lowest]
+    table = html[html.find('<table class="corners">') :]
+    head = table[: table.find("</thead>")]
+    assert [n for n in names if f">{n} mean" in head] == kept
+    assert f"Mean and sigma columns for {', '.join(kept)}: the 3 of 8 measures" in text
+    small = text[text.index("Worst corner per measure") : text.index("Mean and sigma columns")]
+    assert all(f" {n} ss" in small for n in names)
+    assert "◀ worst of 8 measures" in text
+
+
+def test_the_same_nominal_miss_is_said_once_for_every_channel():
+    # review of the 16-channel sizing report (common practice, no source): sixteen identical "nominal outside the
+    # spec" lines are one line naming the channels
+    s = base_summary(passed=0)
+    names = [f"err{i}" for i in range(1, 6)]
+    s["measures"] = {n: {"unit": "1", "nominal": 0.0126, "mean": 0.0126, "std": 0.02} for n in names}
+    s["specs"] = {n: {"min": -0.01, "max": 0.01} for n in names}
+    block = {**s["yield"].pop("specs")["err"], "passed": 6000, "fraction": 0.3, "ci95": [0.29, 0.31]}
+    s["yield"]["specs"] = {n: dict(block) for n in names}
+    text = sections(render_report(s, None, ""))["verdict"]
+    line = "5 specs (err1, err2, err3, err4, err5): the nominal value 1.26 % is outside the spec -1 % … 1 % before any"
+    assert text.count("the nominal value") == 1 and line in text

@@ -13,10 +13,10 @@ import re
 import pytest
 
 from mcmatch.report.figure_sizing import HEADROOM_CLASSES, headroom_class
-from mcmatch.report.format import eng, interval_text, yield_text
+from mcmatch.report.format import condition_text, eng, interval_text, yield_text
 from mcmatch.report.render import render_report
 from mcmatch.report.sections.scope import scope_lines
-from mcmatch.report.sections.sizing import linear_yield_text
+from mcmatch.report.sections.sizing import area_text, linear_yield_text
 from mcmatch.studies.sizing import LINEAR_DRAWS, run_sizing
 from tests.test_sizing import mirror
 
@@ -47,7 +47,10 @@ def test_the_chosen_w_and_l_and_their_confirmation_are_stated(sized):
     for g in d["groups"].values():
         assert f"W = {eng(g['w'], 'm')}, L = {eng(g['l'], 'm')}" in text
     assert yield_text(conf["yield"]) in text and interval_text(conf["ci95"]) in text
-    assert f"{conf['samples']:,} samples at {conf['corner']}" in text
+    assert f"{conf['samples']:,} samples at {condition_text(conf['corner'])}" in text
+    assert "degC" not in text and "\u00b0C" in text  # the report writes degrees as everywhere else
+    # areas in um^2 with thousands separated, never an exponent (common practice, no source)
+    assert area_text(4.95e-8) == "49,500 \u00b5m\u00b2" and area_text(2.64e-10) == "264 \u00b5m\u00b2"
     assert f"{sized['chosen']['confirmations']} confirmation(s)" in text
     # the verdict's scope carries the answer too
     lines = scope_lines({"sizing": sized})
@@ -73,7 +76,7 @@ def test_the_trade_off_figure_draws_every_solved_design_with_its_numbers_in_the_
     assert len(classes) - legend == 2 * len(solved)  # one marker per design in each of the two panels
     title = re.search(r"<title>(.*?)</title>", svg).group(1)
     d = sized["designs"][sized["chosen"]["index"]]
-    assert f"{d['area'] * 1e12:.4g}" in title and f"{len(sized['designs'])} designs" in title
+    assert area_text(d["area"]) in title and f"{len(sized['designs'])} designs" in title
     assert "base64" not in svg
 
 

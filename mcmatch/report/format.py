@@ -64,10 +64,17 @@ def plain(value: object, digits: int = 4) -> str:
 
 
 def yield_text(fraction: object) -> str:
-    """A yield in percent with enough decimals to show two digits of the failure fraction: 0.99873 -> "99.873 %"."""
+    """A yield in percent with two digits of the failure fraction (0.99873 -> "99.873 %") or, below 10 %, of the
+    yield itself (0.0001 -> "0.010 %"); never "100.0 %" below one, never "0.0 %" above zero."""
     v = finite(fraction)
     if v is None:
         return "\u2013"
+    if v == 0:
+        return "0 %"
+    if v < 1e-6:  # never print 0.0 % for a yield above zero
+        return "< 0.0001 %"
+    if v < 0.1:  # two digits of a small yield: 0.0001 -> "0.010 %"
+        return f"{v * 100:.{max(1, 1 - math.floor(math.log10(v * 100)))}f} %"
     fail = (1.0 - v) * 100
     decimals = 1 if fail <= 0 else max(1, min(6, 1 - math.floor(math.log10(fail))))
     text = f"{v * 100:.{decimals}f}"
@@ -80,6 +87,11 @@ def interval_text(ci: object) -> str:
     if not isinstance(ci, (list, tuple)) or len(ci) != 2:
         return "\u2013"
     return f"{yield_text(ci[0])} \u2026 {yield_text(ci[1])}"
+
+
+def condition_text(label: object) -> str:
+    """A condition label of the summary ("ss/-40 degC/1.8 V") as the report writes it ("ss/-40 °C/1.8 V")."""
+    return str(label).replace(" degC", " \u00b0C")
 
 
 def celsius(kelvin: object) -> str:

@@ -72,8 +72,8 @@ def contributions_section(summary: dict, figures: bool, keys: list[str] | None =
                 rows.append(
                     row(
                         [
-                            cell(t.get("device"), "name"),
-                            "" if other else label,
+                            cell("others", "") if other else cell(t.get("device"), "name"),
+                            f"{t['count']} smaller term{'s' if t['count'] != 1 else ''}" if other else label,
                             num("\u2013" if other else plain(_mul(t.get("sigma"), factor), 3)),
                             num("\u2013" if other else sens_u(_per_unit(t), with_unit=False)),
                             num(u(t.get("std"), with_unit=False)),

@@ -4,12 +4,16 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import DisplayUnit, celsius, eng, finite, percent, yield_cells
+from mcmatch.report.format import DisplayUnit, celsius, condition_text, eng, finite, percent, yield_cells
 from mcmatch.report.tables import cell, num, row, status_cell, table
 from mcmatch.report.targets import corner_label, judge, spec_unit, target_of, worst_indices
 
 #: Corner rows drawn in the corner spread figure, at most, the worst among them (the table lists every corner).
 MAX_CORNER_ROWS = 120
+#: Measures given mean and sigma columns in the full corner table, at most (the worst-corner table names them all).
+MAX_CORNER_MEASURES = 3
+#: Measures named in a row's "worst" note, at most.
+MAX_WORST_NAMES = 3
 
 
 def corners_section(summary: dict, key_measures: list[str], figures: bool) -> dict | None:
@@ -24,8 +28,9 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
         worst_of.setdefault(i, []).append(name)
     shown = [m for m in key_measures if any(m in (c.get("measures") or {}) for c in corners)]
     units = {m: DisplayUnit(_values(corners, m), spec_unit(summary, m)) for m in shown}
+    in_table = _table_measures(summary, shown)
     columns: list[str | tuple[str, str]] = ["process", ("temperature", "num"), ("supply", "num")]
-    for m in shown:
+    for m in in_table:
         columns += [(units[m].header(f"{m} mean"), "num"), (units[m].header(f"{m} sigma"), "num")]
     has_yield = bool(specs) and any("yield" in c for c in corners)
     if has_yield:
@@ -47,13 +52,13 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             num(eng(c.get("supply"), "V")),
         ]
         if "error" in c:
-            cells += [cell("", "")] * (2 * len(shown) + (3 if has_yield else 0))
+            cells += [cell("", "")] * (2 * len(in_table) + (3 if has_yield else 0))
             cells += [num("\u2013")] if show_failed else []
             cells += [num("\u2013")] if show_headroom else []
             cells.append(cell(f"FAILS: no operating point ({c['error']})", "status status-fail"))
             rows.append(row(cells, "error"))
             continue
-        for m in shown:
+        for m in in_table:
             stats_m = (c.get("measures") or {}).get(m, {})
             mark = " worst-cell" if worst.get(m) == i else ""  # the marker sits on the measure it belongs to
             title = f"worst corner of {m}" if mark else ""
@@ -71,14 +76,17 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             cells.append(num(f"{c.get('failed_solves', 0):,}"))
         if show_headroom:
             cells.append(_headroom_cell(c.get("compliance"), volts))
-        note = f"\u25c0 worst: {', '.join(worst_of[i])}" if i in worst_of else ""
+        names = worst_of.get(i, [])
+        note = f"\u25c0 worst: {', '.join(names)}" if names else ""
+        if len(names) > MAX_WORST_NAMES:  # the worst-corner table above names them
+            note = f"\u25c0 worst of {len(names)} measures"
         cells.append(cell(note, "worst-note" if note else ""))
         rows.append(row(cells))
     figs = []
     if figures:
         from mcmatch.report import figures as plots
 
-        for m in shown[:2]:
+        for m in in_table[:2]:
             w = worst.get(m)
             drawn = plots.corner_rows(corners, m, w, MAX_CORNER_ROWS)
             total = sum(1 for c in corners if m in (c.get("measures") or {}))
@@ -110,7 +118,15 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
                 }
             )
     samples = {c.get("samples") for c in corners if c.get("samples")}
+    table_note = (
+        f"Mean and sigma columns for {', '.join(in_table)}: the {len(in_table)} of {len(shown)} measures with the "
+        "lowest spec yield at their worst corner. The worst-corner table above names every measure's worst corner; "
+        "summary.json holds every corner's statistics."
+        if len(in_table) < len(shown)
+        else ""
+    )
     return {
+        "table_note": table_note,
         "table": table(columns, rows, "Process \u00d7 temperature \u00d7 supply corners", "corners"),
         "worst": worst_table(summary, shown, units),
         "figures": figs,
@@ -123,6 +139,22 @@ def corners_section(summary: dict, key_measures: list[str], figures: bool) -> di
             }
         ),
     }
+
+
+def _table_measures(summary: dict, shown: list[str]) -> list[str]:
+    """The measures given columns in the full corner table: all, or the MAX_CORNER_MEASURES with the lowest spec
+    yield at their worst corner (then the largest spread), kept in the summary's order."""
+    if len(shown) <= MAX_CORNER_MEASURES:
+        return shown
+    worst = summary.get("corners_worst") or {}
+
+    def rank(m: str) -> float:
+        w = worst.get(m) if isinstance(worst.get(m), Mapping) else {}
+        y = finite(w.get("spec_yield"))
+        return y if y is not None else 2.0
+
+    chosen = set(sorted(shown, key=rank)[:MAX_CORNER_MEASURES])
+    return [m for m in shown if m in chosen]
 
 
 def _criterion(w: Mapping) -> str:
@@ -148,7 +180,7 @@ def worst_table(summary: dict, shown: list[str], units: Mapping[str, DisplayUnit
     for m in names:
         w = worst[m]
         tied = [t for t in w.get("tied") or [] if isinstance(t, Mapping)]
-        label = str(w.get("label") or corner_label(w)).replace(" degC", " \u00b0C")
+        label = condition_text(w.get("label") or corner_label(w))
         if len(tied) > 1:
             alike = "within sampling error" if finite(w.get("margin_sigma")) is not None else "with the same value"
             label += f" ({len(tied)} corners {alike})"

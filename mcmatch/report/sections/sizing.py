@@ -4,10 +4,19 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from mcmatch.report.format import eng, finite, fixed, interval_text, percent, plain, yield_text
+from mcmatch.report.format import condition_text, eng, finite, interval_text, percent, plain, yield_text
 from mcmatch.report.tables import cell, num, row, table
 
 UM2 = "\u00b5m\u00b2"
+
+
+def area_text(area: object, unit: bool = True) -> str:
+    """A total gate area [m^2] in um^2 with thousands separated: 1.4383e-9 -> "1,438 um^2"."""
+    v = finite(area)
+    if v is None:
+        return "\u2013"
+    um2 = v * 1e12
+    return (f"{um2:,.0f}" if abs(um2) >= 1000 else f"{um2:.4g}") + (f" {UM2}" if unit else "")
 
 
 def linear_yield_text(value: object) -> str:
@@ -31,7 +40,8 @@ def _confirmation_text(c: Mapping) -> str:
         return f"Monte Carlo failed: {c['error']}"
     return (
         f"{yield_text(c.get('yield'))} ({interval_text(c.get('ci95'))}) from {c.get('samples', 0):,} samples at "
-        f"{c.get('corner', '?')}" + (f"; {c['failed_solves']:,} failed solves" if c.get("failed_solves") else "")
+        f"{condition_text(c.get('corner', '?'))}"
+        + (f"; {c['failed_solves']:,} failed solves" if c.get("failed_solves") else "")
     )
 
 
@@ -60,7 +70,7 @@ def sizing_scope(summary: dict) -> str | None:
     d = designs[chosen["index"]]
     conf = chosen.get("confirmed") if isinstance(chosen.get("confirmed"), Mapping) else {}
     return (
-        f"Sizing: draw {_groups_text(d)} (total gate area {fixed(d.get('area'), 1e12, UM2)}); die yield checked "
+        f"Sizing: draw {_groups_text(d)} (total gate area {area_text(d.get('area'))}); die yield checked "
         f"by Monte Carlo {_confirmation_text(conf)}; {demonstration_text(conf, (sz.get('target') or {}).get('yield'))}."
         " The verdict above is for the design as drawn in the config."
     )
@@ -76,13 +86,13 @@ def _design_cells(d: Mapping, groups: list[str], limit: float) -> list[dict]:
     head = finite(d.get("min_headroom"))
     return [
         *cells,
-        num(fixed(d.get("area"), 1e12, "", 4)),
+        num(area_text(d.get("area"), unit=False)),
         num(eng(d.get("vdsat"), "V")),
         num(plain(d.get("gm_over_id"), 3)),
         num(plain(d.get("margin_sigma"), 3)),
-        num(f"{linear_yield_text(d.get('linear_yield'))}, {d.get('linear_yield_corner', '?')}"),
+        num(f"{linear_yield_text(d.get('linear_yield'))}, {condition_text(d.get('linear_yield_corner', '?'))}"),
         cell(
-            f"{eng(head, 'V')}, {d.get('headroom_corner', '?')} ({d.get('limiting_device', '?')})",
+            f"{eng(head, 'V')}, {condition_text(d.get('headroom_corner', '?'))} ({d.get('limiting_device', '?')})",
             "num" if head is not None and head >= limit else "num status-fail",
         ),
     ]
@@ -179,7 +189,7 @@ def sizing_section(summary: dict, figures: bool) -> dict | None:
         "target": f"{yield_text((sz.get('target') or {}).get('yield'))} at "
         f"{percent((sz.get('target') or {}).get('confidence'), 3)} confidence",
         "min_headroom": eng(limit, "V"),
-        "max_area": fixed(sz.get("max_area"), 1e12, UM2) if sz.get("max_area") is not None else "none",
+        "max_area": area_text(sz.get("max_area")) if sz.get("max_area") is not None else "none",
         "conditions": _conditions_text(sz.get("conditions") or []),
         "designs": len(designs),
         "solves": sz.get("solves"),
@@ -189,7 +199,7 @@ def sizing_section(summary: dict, figures: bool) -> dict | None:
 def _conditions_text(conditions: list) -> str:
     """Where the headroom limit holds: "tt/27 degC only" or "each of the 16 conditions"."""
     if len(conditions) == 1:
-        return f"{conditions[0]} only"
+        return f"{condition_text(conditions[0])} only"
     return f"each of the {len(conditions)} conditions"
 
 
@@ -207,17 +217,15 @@ def _figure(sz: Mapping, designs: list, pick: int | None, present: Mapping | Non
     d = designs[pick] if pick is not None and 0 <= pick < len(designs) else None
     if d is not None:
         title = (
-            f"sizing trade-off: chosen {fixed(d.get('area'), 1e12, UM2)}, margin {plain(d.get('margin_sigma'), 3)} "
+            f"sizing trade-off: chosen {area_text(d.get('area'))}, margin {plain(d.get('margin_sigma'), 3)} "
             f"sigma, headroom {eng(d.get('min_headroom'), 'V')} ({len(designs)} designs)"
         )
     else:
         title = f"sizing trade-off: no design meets the target ({len(designs)} designs)"
     if present and "error" not in present:
-        title += (
-            f"; as drawn {fixed(present.get('area'), 1e12, UM2)}, margin {plain(present.get('margin_sigma'), 3)} sigma"
-        )
+        title += f"; as drawn {area_text(present.get('area'))}, margin {plain(present.get('margin_sigma'), 3)} sigma"
     heading = "sizing trade-off: " + (
-        f"chosen {fixed(d.get('area'), 1e12, UM2)}" if d is not None else "no design meets the target"
+        f"chosen {area_text(d.get('area'))}" if d is not None else "no design meets the target"
     )
     ax = sizing_tradeoff(sz, title=title, desc=title, heading=heading)
     return {

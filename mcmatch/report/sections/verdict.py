@@ -36,6 +36,7 @@ def verdict_section(summary: dict, key_measures: list[str]) -> dict:
     failing: list[str] = []
     fails: list[tuple] = []
     marginals: list[tuple] = []
+    outside: dict[tuple[str, str], list[str]] = {}  # (nominal, spec) texts -> measures, said once per pair
     for name, block in (y.get("specs") or {}).items():
         s = judge(block, target_yield)
         unit = spec_unit(summary, name)
@@ -46,19 +47,21 @@ def verdict_section(summary: dict, key_measures: list[str]) -> dict:
             or (lim.get("max") is not None and nominal > lim["max"])
         )
         if outside_nominal:
-            findings.append(
-                {
-                    "word": "FAILS",
-                    "cls": "status-fail",
-                    "text": f"{name}: the nominal value {eng(nominal, unit)} is "
-                    f"outside the spec {limits_text(lim, unit)} before any mismatch.",
-                }
-            )
+            outside.setdefault((eng(nominal, unit), limits_text(lim, unit)), []).append(name)
         if s == "fail":
             failing.append(name)
             fails.append((name, block, lim, unit))
         elif s == "marginal":
             marginals.append((name, block, lim, unit))
+    for (nominal_text, spec_text), names in outside.items():
+        findings.append(
+            {
+                "word": "FAILS",
+                "cls": "status-fail",
+                "text": f"{_names(names)}: the nominal value {nominal_text} is outside the spec {spec_text} "
+                "before any mismatch.",
+            }
+        )
     findings += _spec_findings(fails, "FAILS", "status-fail", "is below", target_yield)
     findings += _spec_findings(marginals, "NOT DEMONSTRATED", "status-marginal", "does not settle", target_yield)
     corners = summary.get("corners") or []
@@ -143,6 +146,11 @@ def verdict_section(summary: dict, key_measures: list[str]) -> dict:
     }
 
 
+def _names(names: list[str]) -> str:
+    """One measure by name; several as "16 specs (err1, err2, ...)"."""
+    return names[0] if len(names) == 1 else f"{len(names)} specs ({', '.join(names)})"
+
+
 def _spec_findings(entries: list[tuple], word: str, cls: str, verb: str, target: float) -> list[dict]:
     """Verdict lines for specs of one status: one line each, or one line for all when there are more than three."""
     tail = "; more samples would settle it." if word != "FAILS" else "."
@@ -159,13 +167,13 @@ def _spec_findings(entries: list[tuple], word: str, cls: str, verb: str, target:
         ]
     fractions = [b.get("fraction") for _, b, _, _ in entries if finite(b.get("fraction")) is not None]
     lows = [b["ci95"][0] for _, b, _, _ in entries if isinstance(b.get("ci95"), list)]
-    names = ", ".join(name for name, *_ in entries)
+    names = [name for name, *_ in entries]
     spread = f"{yield_text(min(fractions))} \u2026 {yield_text(max(fractions))}" if fractions else "\u2013"
     return [
         {
             "word": word,
             "cls": cls,
-            "text": f"{len(entries)} specs ({names}): spec yields {spread}, lowest 95 % bound "
+            "text": f"{_names(names)}: spec yields {spread}, lowest 95 % bound "
             f"{yield_text(min(lows)) if lows else chr(8211)}; each {verb} the target {yield_text(target)}{tail}",
         }
     ]
