@@ -224,13 +224,23 @@ def test_contributions_table_has_one_unit_per_column_and_folds_small_terms():
                 },
                 {"device": "MOUT", "parameter": "vth", "sensitivity": 0.0, "sigma": 5.6e-4, "std": 0.0, "share": 0.0},
                 {"device": "MOUT", "parameter": "beta", "sensitivity": 0.0, "sigma": 1.2e-3, "std": 0.0, "share": 0.0},
+                # rounding noise of a finite-difference sensitivity: shown as 0, not as 0.000000000000008
+                {
+                    "device": "MOUT",
+                    "parameter": "vth",
+                    "sensitivity": 1e-14,
+                    "sigma": 5.6e-4,
+                    "std": 8e-18,
+                    "share": 5e-29,
+                },
             ],
         }
     }
     text = sections(render_report(s, None, ""))["contributions"]
     # contributions 1.121 mV and 224.6 uV in one column unit (mV); zero terms folded (common practice, no source)
     assert "contribution to sigma [mV]" in text and "1.121" in text and "0.2246" in text and "224.6" not in text
-    assert "others (2 terms)" in text and "2 smaller terms" in text and "0 V" not in text
+    assert "others (3 terms)" in text and "3 smaller terms" in text and "0 V" not in text
+    assert "0.000000" not in text
     # sensitivity per parameter unit: 0.9965 V/V is 996.5 uV per mV; -0.08984 V per unit is -898.4 uV per %
     assert "sensitivity [\u00b5V per parameter unit]" in text and "996.5" in text and "-898.4" in text
 

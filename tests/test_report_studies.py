@@ -61,6 +61,19 @@ def test_bank_section_shows_the_counted_yield_beside_the_independent_estimate():
     assert "stays above the product" in text
 
 
+def test_a_channel_without_failures_is_counted_not_a_hundred_percent():
+    # issue 16 item 2 (common practice, no source): a channel that never failed in 1000 samples shows "0 of 1,000
+    # failed", and a product of one shows "no failure counted", never "100.0 %"
+    passed = np.ones((1000, 2), dtype=bool)
+    passed[0:20, 1] = False
+    s = base_summary()
+    s["bank"] = bank_yield(passed, ["a", "b"])
+    text = sections(render_report(s, None, ""))["bank"]
+    assert "channel a 0 of 1,000 failed" in text and "channel b 98.0 % (980 of 1,000)" in text
+    assert "1 a 0 of 1,000 failed" in text and "no failure counted" in text  # k = 1: the product of one yield of one
+    assert "100.0 %" not in text
+
+
 def test_bank_section_without_steps_keeps_the_table():
     s = base_summary()
     s["bank"] = {"channels": 16, "all_in_spec": {"fraction": 0.96, "ci95": [0.95, 0.97]}, "independent_estimate": 0.9}

@@ -54,7 +54,7 @@ def _key_numbers(bank: Mapping) -> str:
     parts = [
         f"all {bank.get('channels', '?')} channels in spec {yield_text(a.get('fraction'))} "
         f"(95 % interval {interval_text(a.get('ci95'))})",
-        f"if independent {yield_text(_independent(bank))}",
+        f"if independent {independent_text(_independent(bank))}",
     ]
     worst = bank.get("worst_channel")
     if isinstance(worst, Mapping):
@@ -63,6 +63,12 @@ def _key_numbers(bank: Mapping) -> str:
     if rho is not None:
         parts.append(f"mean correlation {rho:.3f}")
     return "; ".join(parts)
+
+
+def independent_text(value: object) -> str:
+    """The product of the channel yields; a product of one means no channel failed, never shown as "100.0 %"."""
+    v = finite(value)
+    return "no failure counted" if v is not None and v >= 1.0 else yield_text(v)
 
 
 def _independent(bank: Mapping) -> object:
@@ -83,7 +89,7 @@ def _summary_table(bank: Mapping) -> dict:
             row(
                 [
                     cell("if channels were independent (product of the channel yields)", "name"),
-                    num(yield_text(_independent(bank))),
+                    num(independent_text(_independent(bank))),
                 ]
             )
         )
@@ -104,7 +110,10 @@ def _summary_table(bank: Mapping) -> dict:
     for c in per_channel:
         count = f" ({int(c['passed']):,} of {int(total):,})" if c.get("passed") is not None and total else ""
         cls = "worst" if isinstance(worst, Mapping) and c.get("measure") == worst.get("measure") else ""
-        rows.append(row([cell(f"channel {c.get('measure')}", "name"), num(yield_text(c.get("fraction")) + count)], cls))
+        value = yield_text(c.get("fraction")) + count
+        if total and c.get("passed") is not None and int(c["passed"]) == int(total):
+            value = f"0 of {int(total):,} failed"  # never "100.0 %" from a finite sample
+        rows.append(row([cell(f"channel {c.get('measure')}", "name"), num(value)], cls))
     return table(
         ["quantity", ("value", "num")], rows, "Multi-output bank: the chance that every channel is in spec", "compact"
     )
@@ -122,7 +131,13 @@ def _steps_table(bank: Mapping, by_k: list) -> dict | None:
         head, tail = yield_cells(s if "total" in s else {**s, "total": bank.get("samples")})
         rows.append(
             row(
-                [num(str(k)), cell(added, "name"), num(head), num(tail), num(yield_text(s.get("independent_estimate")))]
+                [
+                    num(str(k)),
+                    cell(added, "name"),
+                    num(head),
+                    num(tail),
+                    num(independent_text(s.get("independent_estimate"))),
+                ]
             )
         )
     return table(

@@ -14,6 +14,8 @@ MAX_CONTRIBUTION_FIGURES = 6
 #: Terms listed one by one in a measure's table, at most; the rest (and every term under
 #: figures.MIN_SHARE of the variance) are summed into "others".
 TABLE_TERMS = 12
+#: Variance shares below this are rounding noise of the sensitivities (1e-5 of sigma), shown as 0.
+NOISE_SHARE = 1e-10
 #: Display of a mismatch parameter: (factor from SI, label with its unit).
 PARAMETER_UNITS = {"vth": (1e3, "\u0394Vth [mV]"), "beta": (1e2, "\u0394\u03b2/\u03b2 [%]")}
 
@@ -76,7 +78,7 @@ def contributions_section(summary: dict, figures: bool, keys: list[str] | None =
                             f"{t['count']} smaller term{'s' if t['count'] != 1 else ''}" if other else label,
                             num("\u2013" if other else plain(_mul(t.get("sigma"), factor), 3)),
                             num("\u2013" if other else sens_u(_per_unit(t), with_unit=False)),
-                            num(u(t.get("std"), with_unit=False)),
+                            num(u(_above_noise(t), with_unit=False)),
                             num(significant(100 * (finite(t.get("share")) or 0.0), 3)),
                         ]
                     )
@@ -101,6 +103,12 @@ def contributions_section(summary: dict, figures: bool, keys: list[str] | None =
 def _mul(value: object, factor: float) -> float | None:
     v = finite(value)
     return None if v is None else v * factor
+
+
+def _above_noise(term: Mapping) -> object:
+    """A term's contribution to sigma, or 0 when its share of the variance is numerical noise (below NOISE_SHARE)."""
+    share = finite(term.get("share"))
+    return 0.0 if share is not None and share < NOISE_SHARE else term.get("std")
 
 
 def _per_unit(term: Mapping) -> float | None:
