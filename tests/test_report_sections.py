@@ -87,8 +87,18 @@ def test_verdict_always_says_pre_layout_and_names_the_conditions():
 
 
 def test_zero_failures_give_a_bound_not_a_hundred_percent():
-    html = render_report(base_summary(), None, "")
+    s = base_summary()
+    # the sampling-error table too: sqrt(p(1-p)/N) is 0 at p = 1, which would read as a certain yield
+    s["sampling"] = {
+        "method": "random",
+        "error_estimate": "plain Monte Carlo",
+        "measures": {"err": {"std": 5.166e-5, "std_error": 2.6e-7, "mc_std_error": 2.6e-7}},
+        "yield": {"fraction": 1.0, "std_error": 0.0, "mc_std_error": 0.0},
+    }
+    html = render_report(s, None, "")
     text = sections(html)
+    assert "joint yield 0 of 20,000 failed failure rate below 0.0184 % (95 %, two-sided)" in text["measures"]
+    assert " 0 %" not in text["measures"]
     # 0 failures in 20,000: two-sided 95 % Clopper-Pearson upper bound 1 - 0.025^(1/20000) = 0.01844 % (Clopper,
     # Pearson, Biometrika 1934; DESIGN.md section 4 gives 0.0036821 for N = 1000 by the same formula)
     assert pytest.approx(0.0036821, abs=5e-8) == 1 - 0.025 ** (1 / 1000)
@@ -418,3 +428,20 @@ def test_the_same_nominal_miss_is_said_once_for_every_channel():
     text = sections(render_report(s, None, ""))["verdict"]
     line = "5 specs (err1, err2, err3, err4, err5): the nominal value 1.26 % is outside the spec -1 % … 1 % before any"
     assert text.count("the nominal value") == 1 and line in text
+
+
+def test_a_templates_default_measures_are_defined_from_the_summary():
+    # issue 16 item 4 (common practice, no source): a template's default measures are not in the config text, so the
+    # run records each measure's definition in the summary and the table reads it from there
+    from conftest import ROOT
+
+    import mcmatch
+
+    config = mcmatch.load_config(ROOT / "configs" / "lowvoltage_cascode.toml")
+    summary = mcmatch.run_config(mcmatch.with_overrides(config, samples=200), jobs=1).summary.to_dict()
+    assert summary["measures"]["err1"]["definition"] == {"ratio": ["MOUT1", "IREF"], "ideal": 2.0}
+    text = sections(render_report(summary, None, (ROOT / "configs" / "lowvoltage_cascode.toml").read_text()))
+    table = text["circuit"][text["circuit"].index("Measures recorded") :]
+    assert "err1 = I(MOUT1) / (2 \u00d7 I(IREF)) \u2212 1" in table
+    assert "r_out1 = dV/dI seen by VOUT1" in table and "v_nb = V(nb)" in table and "r_nb = dV/dI at nb" in table
+    assert "not defined" not in table and table.count("(set by the template 'wide_swing_cascode')") == 5

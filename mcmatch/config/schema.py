@@ -282,6 +282,11 @@ class Measure(Frozen):
     def unit(self) -> str:
         return MEASURE_UNITS[self.kind]
 
+    @property
+    def definition(self) -> dict:
+        """The measure's table as given or as a template set it: {"ratio": ["MOUT1", "IREF"], "ideal": 2}."""
+        return self.model_dump(mode="json", exclude_none=True)
+
 
 class Spec(Frozen):
     """Limits of one measure, in the measure's SI unit (parsed later, once the unit is known)."""

@@ -8,7 +8,7 @@ Types are strict (no "3" for 3, no 1.5 for an integer count), so a wrong type fa
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -25,6 +25,11 @@ class MeasureStats(Block):
 
     unit: str = Field(description='SI unit of the measure\'s values: "A", "V", "ohm", or "1" for a fraction')
     kind: str = Field(description='what is measured: "current", "voltage", "ratio", "resistance", ...')
+    definition: dict[str, Any] | None = Field(
+        default=None,
+        description='the measure\'s table as given or as its template set it, e.g. {"ratio": ["MOUT1", "IREF"], '
+        '"ideal": 2}',
+    )
     nominal: float = Field(description="value with no mismatch at the nominal corner [unit]")
     count: int = Field(description="converged samples behind the statistics")
     mean: float | None = Field(description="sample mean [unit]; null when no sample converged")

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from mcmatch import __version__
-from mcmatch.config.schema import Config
+from mcmatch.config.schema import Config, Measure
 from mcmatch.draws.mismatch import BLOCK, SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.results.summary import finish_summary
@@ -83,10 +83,15 @@ def failed_examples(columns: dict[str, np.ndarray], limit: int = FAILED_EXAMPLES
     return [{k: float(columns[k][i]) if k != "sample" else int(columns[k][i]) for k in keys} for i in failed]
 
 
+def measure_head(measure: Measure) -> dict:
+    """What a measure's summary block says of the measure itself: unit, kind and its definition."""
+    return {"unit": measure.unit, "kind": measure.kind, "definition": measure.definition}
+
+
 def measure_summaries(columns: dict[str, np.ndarray], study: Study, nominal: dict[str, float]) -> dict:
     out = {}
     for name, measure in study.measures.items():
-        out[name] = {"unit": measure.unit, "kind": measure.kind, **describe(columns[name], nominal[name])}
+        out[name] = {**measure_head(measure), **describe(columns[name], nominal[name])}
     return out
 
 
@@ -160,8 +165,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
         "seed": int(config.analysis.seed),
         "failed_solves": int(stats.failed),
         "measures": {
-            name: {"unit": m.unit, "kind": m.kind, **stats.describe(name, nominal[name], kept)}
-            for name, m in study.measures.items()
+            name: {**measure_head(m), **stats.describe(name, nominal[name], kept)} for name, m in study.measures.items()
         },
         "yield": streamed_yields(stats, config),
         "sampling": sampling_summary(stats, config.analysis.sampling),

@@ -81,8 +81,12 @@ def circuit_section(summary: dict, config: Mapping) -> dict | None:
     for name in names:
         unit = ((summary.get("measures") or {}).get(name) or {}).get("unit", "")
         definition = defined.get(name)
-        if isinstance(definition, Mapping):
+        if not isinstance(definition, Mapping):  # a template's default: the run recorded how it set it
+            definition = ((summary.get("measures") or {}).get(name) or {}).get("definition")
+        if isinstance(definition, Mapping) and definition:
             text, meaning = measure_definition(name, definition)
+            if name not in defined and circuit_cfg.get("template"):
+                meaning = f"{meaning} (set by the template '{circuit_cfg['template']}')".lstrip()
         elif circuit_cfg.get("template"):
             text, meaning = f"{name}: set by the circuit template '{circuit_cfg['template']}'", ""
         else:

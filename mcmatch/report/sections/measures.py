@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 
-from mcmatch.report.format import DisplayUnit, finite, limits_text, percent, plain, yield_text
+from mcmatch.report.format import DisplayUnit, finite, limits_text, percent, plain, yield_cells, yield_text
 from mcmatch.report.tables import cell, num, row, table
 
 
@@ -86,8 +86,13 @@ def sampling_section(summary: dict) -> dict | None:
         rows.append(row(cells))
     y = sampling.get("yield")
     if isinstance(y, Mapping) and summary.get("specs"):
-        cells = [cell("joint yield", "name"), num(yield_text(y.get("fraction")))]
-        cells += [num(percent(y.get("std_error"), 3)), num(percent(y.get("mc_std_error"), 3))]
+        main = summary.get("yield") or {}
+        if main.get("total") and main.get("passed") == main.get("total"):  # sqrt(p(1-p)/N) = 0 says nothing here
+            head, bound = yield_cells(main)
+            cells = [cell("joint yield", "name"), num(head), num(bound), num("\u2013")]
+        else:
+            cells = [cell("joint yield", "name"), num(yield_text(y.get("fraction")))]
+            cells += [num(percent(y.get("std_error"), 3)), num(percent(y.get("mc_std_error"), 3))]
         if sobol:
             cells.append(num(plain(y.get("sample_ratio"), 3)))
         rows.append(row(cells))
