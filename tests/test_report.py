@@ -500,6 +500,13 @@ def test_engineering_units():
     # and a yield above zero never as 0.0 %: two digits of a small yield (2 of 20,000 is 0.010 %)
     assert yield_text(2 / 20000) == "0.010 %" and yield_text(1.2e-5) == "0.0012 %" and yield_text(0.009) == "0.90 %"
     assert yield_text(3e-9) == "< 0.0001 %" and yield_text(0.0) == "0 %" and yield_text(0.304) == "30.4 %"
+    # the two-sided normal equivalent of a 0.01 % yield is z = inv_Phi(0.50005) = 1.25e-4 (scipy.stats.norm.ppf)
+    from scipy.stats import norm
+
+    from mcmatch.report.format import sigma_equivalent
+
+    assert sigma_equivalent(1e-4) == f"\u00b1{norm.ppf(0.50005):.2g} sigma two-sided" == "\u00b10.00013 sigma two-sided"
+    assert sigma_equivalent(0.9973) == "\u00b13.00 sigma two-sided"
 
 
 def test_plot_functions_take_and_return_axes():

@@ -106,7 +106,8 @@ def sigma_equivalent(fraction: object) -> str:
         return "\u2013"
     if v >= 1:
         return "no failing sample"
-    return f"\u00b1{NormalDist().inv_cdf(0.5 + v / 2):.2f} sigma two-sided"
+    z = NormalDist().inv_cdf(0.5 + v / 2)
+    return f"\u00b1{z:.2f} sigma two-sided" if z >= 0.1 else f"\u00b1{z:.2g} sigma two-sided"  # never ±0.00
 
 
 def limits_text(limits: Mapping | None, unit: str, shown: Callable[[object], str] | None = None) -> str:

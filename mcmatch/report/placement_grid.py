@@ -9,6 +9,7 @@ from collections.abc import Mapping, Sequence
 from markupsafe import Markup
 
 from mcmatch.draws.placement import cell_layout
+from mcmatch.report.format import yield_text
 from mcmatch.report.svg import Canvas, marker_markup
 
 #: (fill, hatch, centroid marker) per device, in letter order; the matplotlib drawing uses the same.
@@ -48,7 +49,7 @@ def candidate_svg(entry: Mapping, width: float = 560) -> Canvas:
     y = entry.get("yield") or {}
     caption = str(entry.get("name", ""))
     if isinstance(y, Mapping) and y.get("fraction") is not None:
-        caption += f"  (yield {float(y['fraction']) * 100:.3f} %)"
+        caption += f"  (yield {yield_text(y['fraction'])})"  # as the placement table writes it
     ax.heading(caption)
     ax.title = f"unit cells of placement {caption}: rows {' / '.join(rows)}"
 
