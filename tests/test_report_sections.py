@@ -345,7 +345,7 @@ def test_placement_grid_draws_every_cell_as_text_and_shapes():
     svg = str(candidate_svg(entry).svg())
     assert svg.count('<rect class="cell') == 8 and svg.count('class="cell dummy"') == 4
     assert len(re.findall(r'class="cell-letter">[AB]</text>', svg)) == 4
-    assert "quad &lt;cc&gt;  (yield 99.000 %)" in svg  # the candidate's name is escaped text
+    assert "quad &lt;cc&gt;  (yield 99.0 %)" in svg  # the name is escaped text; the yield as the table writes it
     assert "centroid of A (MREF)" in svg and "centroid of B (MOUT)" in svg
 
 
