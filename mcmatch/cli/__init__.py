@@ -20,7 +20,7 @@ from mcmatch.cli import signals
 from mcmatch.errors import ConfigError, SolveError, clean
 
 #: Subcommand modules, in the order `mcmatch --help` lists them.
-COMMANDS = ("run", "size", "check", "templates", "new", "report", "bench", "placements")
+COMMANDS = ("run", "watch", "size", "check", "templates", "new", "report", "bench", "placements")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -66,6 +66,14 @@ def escaped_output() -> Iterator[None]:
         sys.stdout, sys.stderr = saved
 
 
+def error_text(exc: ConfigError | SolveError, config: str | None) -> str:
+    """The one-line message of a bad input (exit 2): the file, the key and what was expected."""
+    if isinstance(exc, SolveError):
+        where = f"{config}: key 'circuit': " if config else ""
+        return f"mcmatch: error: {where}{exc.message}"
+    return f"mcmatch: error: {exc}"
+
+
 def main(argv: list[str] | None = None) -> int:
     """The command line: parse argv, run the subcommand, return the exit status (never raises but SystemExit)."""
     with escaped_output():
@@ -90,13 +98,8 @@ def _main(argv: list[str] | None) -> int:
             status = int(args.execute(args))
             signals.check()  # a signal whose exception a finaliser swallowed still ends the command as interrupted
             return status
-        except ConfigError as exc:
-            print(f"mcmatch: error: {exc}", file=sys.stderr)
-            return 2
-        except SolveError as exc:  # the circuit cannot be biased: an input problem, named with its config file
-            config = getattr(args, "config", None)
-            where = f"{config}: key 'circuit': " if config else ""
-            print(f"mcmatch: error: {where}{exc.message}", file=sys.stderr)
+        except (ConfigError, SolveError) as exc:  # bad input; a SolveError: the circuit cannot be biased
+            print(error_text(exc, getattr(args, "config", None)), file=sys.stderr)
             return 2
         except (KeyboardInterrupt, signals.Terminated) as exc:
             written = getattr(args, "written", None)  # set once a run folder has replaced the previous one

@@ -7,11 +7,13 @@ import time
 from pathlib import Path
 
 
-def command_seconds(started: float) -> float:
+def command_seconds(started: float, whole_process: bool = True) -> float:
     """Seconds since this process started [s]: from /proc on Linux (10 ms ticks), so the interpreter's start-up and
-    imports before the command line count too; elsewhere since `started`, a time.perf_counter() taken at the CLI's
-    entry."""
+    imports before the command line count too; elsewhere, or with whole_process False (a warm re-run in a watch),
+    since `started`, a time.perf_counter() taken at the CLI's entry or when the re-run began."""
     since_entry = time.perf_counter() - started
+    if not whole_process:
+        return since_entry
     try:
         stat = Path("/proc/self/stat").read_text(encoding="ascii")
         start_ticks = int(stat.rsplit(")", 1)[1].split()[19])  # field 22, starttime, counted after "pid (comm)"

@@ -72,6 +72,7 @@ def add_parser(
 
 def execute(args: argparse.Namespace) -> int:
     started = getattr(args, "started", None) or time.perf_counter()  # set by main(): the whole command is timed
+    warm = bool(getattr(args, "warm", False))  # a re-run in `mcmatch watch`: timed from the change, not the process
     from mcmatch.cli.clock import command_seconds
     from mcmatch.config.analysis import Analysis
     from mcmatch.config.loading import load_config
@@ -112,7 +113,9 @@ def execute(args: argparse.Namespace) -> int:
         (folder / "config.toml").write_text(config.text, encoding="utf-8")
         if config.technology_text:  # the technology file too: the run folder alone reproduces the run
             (folder / "technology.toml").write_text(config.technology_text, encoding="utf-8")
-        result.summary["run"]["command_time_s"] = command_seconds(started)  # all but the report's own rendering
+        result.summary["run"]["command_time_s"] = command_seconds(started, not warm)  # all but the report's rendering
+        if warm:
+            result.summary["run"]["warm"] = True
         write_json(folder / "summary.json", result.summary)
         if args.no_report:
             return
@@ -150,7 +153,7 @@ def execute(args: argparse.Namespace) -> int:
         print(f"  yield {_num(y['fraction'], '.5f')} (95 % CI {y['ci95'][0]:.5f} .. {y['ci95'][1]:.5f})")
         report = out_dir / "report.html"
         shown = f"open {report}" if (target / "report.html").exists() else f"no report ('mcmatch report {out_dir}')"
-        print(f"  written to {out_dir} in {command_seconds(started):.1f} s; {shown}")
+        print(f"  written to {out_dir} in {command_seconds(started, not warm):.1f} s; {shown}")
     return 0
 
 

@@ -69,6 +69,11 @@ def received() -> int | None:
     return _received[0] if _received else None
 
 
+def forget() -> None:
+    """Drop the signals recorded so far: one that ended a wait normally (Ctrl-C stopping a watch)."""
+    _received.clear()
+
+
 def check() -> None:
     """Raise KeyboardInterrupt / Terminated again if a signal arrived: call where stopping is safe."""
     if _received:

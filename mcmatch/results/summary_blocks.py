@@ -219,3 +219,8 @@ class RunInfo(Block):
         description="the whole command from its process start (interpreter and imports included) to the results "
         "written, the report's own rendering excluded [s]; absent when the study ran from Python",
     )
+    warm: bool | None = Field(
+        None,
+        description="true for a re-run in 'mcmatch watch': command_time_s then counts from the saved change, in a "
+        "process whose imports were already done",
+    )

@@ -189,7 +189,8 @@ def header_items(summary: dict) -> list[tuple[str, str, str]]:
         date = str(started)
     seconds, study = finite(run.get("command_time_s")), finite(run.get("run_time_s"))
     if seconds is not None:
-        run_time = f"{seconds:.3g} s (whole command)" + (f"; study {study:.3g} s" if study is not None else "")
+        what = "warm re-run in mcmatch watch" if run.get("warm") else "whole command"
+        run_time = f"{seconds:.3g} s ({what})" + (f"; study {study:.3g} s" if study is not None else "")
     else:
         run_time = f"{study:.3g} s (study only)" if study is not None else "\u2013"
     items = [
