@@ -16,6 +16,7 @@ import time
 from pathlib import Path
 
 from mcmatch.cli import error_text, run, signals
+from mcmatch.cli.options import check_integer
 from mcmatch.errors import ConfigError, SolveError
 
 #: How often the watched files' modification times are read [s], by default.
@@ -58,7 +59,9 @@ def _watched(args: argparse.Namespace) -> list[Path]:
         raw = tomllib.loads(paths[0].read_text(encoding="utf-8"))
         tech = raw.get("technology") if isinstance(raw, dict) else None
         if isinstance(tech, str) and tech.strip():
-            candidate = (paths[0].parent / tech).resolve()
+            from mcmatch.config.loading import technology_file
+
+            candidate = technology_file(tech, paths[0])
             if candidate.is_file():
                 paths.append(candidate)
     except (OSError, ValueError):  # unreadable or not TOML yet: the run reports it
@@ -69,8 +72,7 @@ def _watched(args: argparse.Namespace) -> list[Path]:
 def execute(args: argparse.Namespace) -> int:
     if not args.interval > 0:
         raise ConfigError(f"expected a positive number of seconds, got {args.interval}", "command line", "--interval")
-    if args.runs < 0:
-        raise ConfigError(f"expected an integer >= 0, got {args.runs}", "command line", "--runs")
+    check_integer("--runs", args.runs, 0, None)
     runs, status, seen, running = 0, 0, None, False
     say = (lambda text: None) if args.quiet else (lambda text: print(text, file=sys.stderr, flush=True))
     try:

@@ -146,10 +146,15 @@ def check_nesting(data: object, file: str, limit: int = MAX_NESTING) -> None:
             stack.extend((v, (*loc, i)) for i, v in enumerate(value))
 
 
+def technology_file(name: str, config_path: Path) -> Path:
+    """Where a config's `technology = "..."` points: the path relative to the config file, resolved."""
+    return (config_path.parent / name).resolve()
+
+
 def load_technology(data: str | dict[str, Any], config_path: Path) -> tuple[Technology, str | None, str]:
     """Resolve a technology: a path relative to the config file, or an inline table."""
     if isinstance(data, str):
-        tech_path = (config_path.parent / data).resolve()
+        tech_path = technology_file(data, config_path)
         if not tech_path.is_file():
             raise ConfigError(
                 f"technology file '{data}' not found (looked at {tech_path})", file=str(config_path), key="technology"

@@ -112,7 +112,7 @@ def _summary_table(bank: Mapping) -> dict:
         cls = "worst" if isinstance(worst, Mapping) and c.get("measure") == worst.get("measure") else ""
         value = yield_text(c.get("fraction")) + count
         if total and c.get("passed") is not None and int(c["passed"]) == int(total):
-            value = f"0 of {int(total):,} failed"  # never "100.0 %" from a finite sample
+            value = f"0 of {int(total):,} failed"  # never "100.0 %" from a finite sample (no interval is kept here)
         rows.append(row([cell(f"channel {c.get('measure')}", "name"), num(value)], cls))
     return table(
         ["quantity", ("value", "num")], rows, "Multi-output bank: the chance that every channel is in spec", "compact"

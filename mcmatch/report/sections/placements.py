@@ -102,6 +102,14 @@ def placements_table(summary: dict, key_measures: list[str]) -> dict | None:
     return table(columns, rows, caption)
 
 
+def _includes_zero(paired: object) -> bool:
+    """Whether a paired difference's interval includes zero: the candidate cannot be told from the best."""
+    if not isinstance(paired, Mapping):
+        return False
+    lo, hi = (finite(v) for v in (paired.get("ci95") or [None, None])[:2])
+    return lo is not None and hi is not None and lo <= 0.0 <= hi
+
+
 def placement_note(summary: dict, key_measures: list[str]) -> list[str]:
     """Sentences under the placement table: the best candidate, the candidates it cannot be told from, and, when no
     candidate reaches the target, whether the systematic error or the random spread is what limits."""
@@ -111,15 +119,7 @@ def placement_note(summary: dict, key_measures: list[str]) -> list[str]:
     if best is None:
         return ["No candidate could be solved, so none is named best."] if summary.get("placements") else []
     notes = [f"Best: {best_name} (highest joint yield; ties go to the smallest systematic error)."]
-    tied = [
-        p["name"]
-        for p in placements
-        if p is not best
-        and isinstance(p.get("versus_best"), Mapping)
-        and (lambda ci: ci[0] is not None and ci[1] is not None and ci[0] <= 0.0 <= ci[1])(
-            [finite(v) for v in (p["versus_best"].get("ci95") or [None, None])[:2]]
-        )
-    ]
+    tied = [p["name"] for p in placements if p is not best and _includes_zero(p.get("versus_best"))]
     if tied:
         notes.append(
             f"{', '.join(tied)} cannot be told from the best on these samples: the paired interval of the "
