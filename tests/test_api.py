@@ -17,12 +17,12 @@ FAST = 256
 
 
 def _without_timing(summary: dict) -> dict:
-    """The summary less what differs between two runs of the same seed: when and how long.
+    """The summary less what differs between two runs of the same seed: when and how long (run and Monte Carlo).
 
     command_time_s is set by the command only (the API cannot see the whole process).
     """
     out = json.loads(json.dumps(summary))
-    for key in ("started_utc", "run_time_s", "command_time_s"):
+    for key in ("started_utc", "run_time_s", "command_time_s", "monte_carlo_time_s"):
         out["run"].pop(key, None)
     return out
 

@@ -81,6 +81,17 @@ def test_thermal_voltage_at_300_kelvin():
     assert device_parameters(config.circuit, config.technology, 300.0).ut == pytest.approx(25.852e-3, abs=5e-7)
 
 
+def test_the_written_out_constants_are_scipys_codata_values():
+    # k and e are exact in the SI since 2019 (CODATA 2018, as scipy.constants gives them); the device model writes
+    # them out instead of importing scipy.constants at start-up
+    import scipy.constants
+
+    from mcmatch.model.devices import BOLTZMANN, ELEMENTARY_CHARGE
+
+    assert (scipy.constants.k, scipy.constants.e) == (BOLTZMANN, ELEMENTARY_CHARGE)
+    assert thermal_voltage(300.0) == scipy.constants.k * 300.0 / scipy.constants.e
+
+
 def test_kprime_falls_with_temperature_by_the_mobility_exponent():
     # mobility ~ T^-1.5 (lattice scattering; e.g. Sze, Physics of Semiconductor Devices): from 27 to 125 degC k'
     # becomes (398.15/300.15)^-1.5 = 0.65454 of its value (the task brief's "0.6546" is this, rounded up)

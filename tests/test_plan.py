@@ -65,6 +65,14 @@ def test_structurally_singular_system_is_refused():
         block_order(2, {(0, 0), (1, 0)})
 
 
+def test_one_unknown_is_its_own_block():
+    # Common practice, no source: a one-unknown system (the reduced simple mirror and bank) is one 1x1 block, found
+    # without the graph library; an unknown that no equation reads is still refused
+    assert block_order(1, {(0, 0)}) == [([0], [0])]
+    with pytest.raises(ValueError, match="structurally singular"):
+        block_order(1, set())
+
+
 def test_independent_blocks_follow_their_first_unknown():
     # Common practice, no source: a mirror bank's outputs each need the reference node only; they come after it, in
     # the order of their unknowns, so the order (and with it every sample's bits) does not depend on the graph library

@@ -62,7 +62,7 @@ def _wait_for(condition, proc: subprocess.Popen, timeout: float = 120.0) -> None
 def _numbers(summary: dict) -> dict:
     """The summary less what differs between two runs of the same seed (when, how long, which process)."""
     out = json.loads(json.dumps(summary))
-    for key in ("started_utc", "run_time_s", "command_time_s", "warm", "config"):
+    for key in ("started_utc", "run_time_s", "command_time_s", "monte_carlo_time_s", "warm", "config"):
         out["run"].pop(key, None)
     return out
 

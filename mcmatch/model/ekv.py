@@ -9,7 +9,6 @@ Circuits and Signal Processing 8, 1995).
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import expit
 
 from mcmatch.model.state import DeviceCurrents, DeviceState, FloatArray, as_arrays, finish
 
@@ -23,6 +22,8 @@ def _interpolation(x: np.ndarray, second: bool = False) -> tuple[np.ndarray, np.
 
     With s = 1/(1 + e^(-x/2)): F' = s ln(1 + e^(x/2)) and F'' = s^2/2 + s (1 - s) ln(1 + e^(x/2)) / 2.
     """
+    from scipy.special import expit  # on first use: only EKV runs pay scipy.special's import (0.1-0.2 s)
+
     half = 0.5 * x
     soft = np.logaddexp(0.0, half)
     sig = expit(half)

@@ -219,6 +219,16 @@ class RunInfo(Block):
         description="the whole command from its process start (interpreter and imports included) to the results "
         "written, the report's own rendering excluded [s]; absent when the study ran from Python",
     )
+    monte_carlo_time_s: float | None = Field(
+        None,
+        description="wall time of the main condition's Monte Carlo: the pilot chunk, then every other chunk solved, "
+        "reduced and folded [s]; samples / monte_carlo_time_s is the run's throughput",
+    )
+    workers: int | None = Field(
+        None,
+        description="processes that solved the main Monte Carlo's chunks after the pilot (1: this process; with a "
+        "cluster, the chunks in flight)",
+    )
     warm: bool | None = Field(
         None,
         description="true for a re-run in 'mcmatch watch': command_time_s then counts from the saved change, in a "

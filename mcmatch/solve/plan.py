@@ -78,7 +78,12 @@ def block_order(m: int, pattern: set[tuple[int, int]]) -> list[tuple[list[int], 
     "unknown k needs unknown j" (its equation has a nonzero in column j) are the blocks. They do not depend on
     which perfect matching is found. Blocks are ordered by dependency level (a block comes one level after the
     deepest block it needs), within a level by their first unknown. ValueError if the system is structurally
-    singular."""
+    singular. A single unknown is its own block: no graph to search (and no scipy import, 0.2-0.3 s, for the
+    simple mirrors and banks, whose reduced systems have one unknown)."""
+    if m == 1:
+        if (0, 0) not in pattern:
+            raise ValueError("structurally singular system: no equation left for unknown 0")
+        return [([0], [0])]
     from scipy.sparse import csr_matrix
     from scipy.sparse.csgraph import connected_components, maximum_bipartite_matching
 

@@ -16,10 +16,10 @@ from mcmatch import __version__
 from mcmatch.config.schema import Config, Measure
 from mcmatch.draws.mismatch import BLOCK, SOBOL_SCRAMBLINGS
 from mcmatch.model.operating_point import device_operating_points
-from mcmatch.results.summary import finish_summary
 from mcmatch.results.tables import Columns, to_frame
 from mcmatch.run.chunks import CHUNK_QUANTUM, resolve_jobs, run_chunk, stream_chunks
 from mcmatch.run.loads import resolve_loads
+from mcmatch.run.prefetch import prefetch
 from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.compliance import compliance_block
 from mcmatch.stats.describe import describe
@@ -31,6 +31,8 @@ from mcmatch.stats.yields import joint_passes, passes, yield_block
 if TYPE_CHECKING:
     import pandas as pd
 
+#: What only the summary needs, imported while the workers solve (run/prefetch.py): about 0.2 s of every run.
+SUMMARY_MODULES = ("scipy.special", "mcmatch.results.summary")
 #: Failed samples whose parameters are listed in the summary, as examples.
 FAILED_EXAMPLES = 5
 
@@ -112,8 +114,9 @@ def streamed_yields(stats: RunAccumulator, config: Config, confidence: float = 0
 
 def stream_statistics(
     study: Study, config: Config, nominal: dict[str, float], options: RunOptions
-) -> tuple[RunAccumulator, dict[str, np.ndarray]]:
-    """Monte Carlo of the study, streamed: statistics over every sample, rows kept for the first `keep` samples only.
+) -> tuple[RunAccumulator, dict[str, np.ndarray], dict]:
+    """Monte Carlo of the study, streamed: statistics over every sample, rows kept for the first `keep` samples only;
+    with its wall time [s] and worker count (summary run.monte_carlo_time_s and run.workers).
 
     A pilot chunk (the first random block) is solved here first: it sets the quantile histograms' range. Every
     later chunk is solved and reduced where it runs, then folded here in sample order.
@@ -138,16 +141,22 @@ def stream_statistics(
     if options.progress is not None:
         options.progress(pilot_stop)
     jobs = resolve_jobs(options.jobs, samples, None if options.backend else per_sample * (samples - pilot_stop))
+    loader = None
     for part in stream_chunks(
         study, samples, jobs, options.backend, reduce=reducer, start=pilot_stop, chunk_size=options.chunk_size
     ):
         stats.add(part)
+        if loader is None and jobs > 1:  # the workers are forked by now (all at the first chunk): a thread is safe
+            loader = prefetch(SUMMARY_MODULES)
         if options.progress is not None:
             options.progress(part.stop - part.start)
+    if loader is not None:
+        loader.join()  # done long before in practice; no import may be in flight at a later fork (an analysis's pool)
+    timing = {"monte_carlo_time_s": time.perf_counter() - started, "workers": int(jobs)}
     kept = stats.kept_columns()
     if not kept:  # keep = 0: an empty table with the run's columns
         kept = {k: v[:0] for k, v in run_chunk(study, 0, 1).items()}
-    return stats, kept
+    return stats, kept, timing
 
 
 def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
@@ -158,7 +167,7 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
     study = prepare(config)
     nominal = nominal_measures(study)
     samples = config.analysis.samples
-    stats, kept = stream_statistics(study, config, nominal, options)
+    stats, kept, timing = stream_statistics(study, config, nominal, options)
     summary: dict = {
         "title": config.title,
         "samples": int(samples),
@@ -210,5 +219,8 @@ def run_study(config: Config, options: RunOptions | None = None) -> RunResult:
 
     summary.update(run_variation(config, study, summary))
     summary["run"]["run_time_s"] = time.perf_counter() - started
+    summary["run"].update(timing)
+    from mcmatch.results.summary import finish_summary  # local: prefetched while the workers solved
+
     summary = finish_summary(summary)  # schema_version added; checked against results.summary.Summary
     return RunResult(summary=summary, columns=kept, study=study)
