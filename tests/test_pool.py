@@ -130,3 +130,28 @@ def test_a_failure_in_a_worker_reaches_the_caller(study, monkeypatch):
     with pytest.raises(ValueError, match="chunk 200 failed"):
         list(map_chunks(study, [(0, 100), (100, 200), (200, 300)], 2, task=_failing_chunk))
     assert len(list(map_chunks(study, [(0, 100), (100, 200)], 2))) == 2
+
+
+def test_a_pools_chunks_end_in_single_blocks():
+    # Common practice (guided scheduling), no source: with several workers the last chunk of each is cut into
+    # single random blocks so the workers finish close together; the ranges still cover every sample once, in order,
+    # on block boundaries; one worker, or a forced size, keeps equal chunks
+    from mcmatch.run.chunks import CHUNK_QUANTUM, chunk_ranges
+
+    samples, start = 20_000_000, BLOCK
+    for jobs in (1, 2, 4):
+        ranges = chunk_ranges(samples, jobs, start=start)
+        flat = [edge for r in ranges for edge in r]
+        assert flat[0] == start and flat[-1] == samples
+        assert all(a == b for a, b in zip(flat[1:-1:2], flat[2::2], strict=True))  # contiguous
+        assert all(stop > begin and begin % CHUNK_QUANTUM == 0 for begin, stop in ranges)
+        sizes = [stop - begin for begin, stop in ranges]
+        if jobs == 1:
+            assert len(set(sizes[:-1])) == 1
+        else:
+            big = max(sizes)
+            tail = [k for k, n in enumerate(sizes) if n <= BLOCK]
+            assert big == 8 * BLOCK and tail == list(range(tail[0], len(sizes)))
+            assert sum(sizes[k] for k in tail) >= (jobs - 1) * big  # the last chunks of the workers, cut up
+    forced = chunk_ranges(samples, 2, start=start, size=3 * BLOCK)
+    assert {stop - begin for begin, stop in forced[:-1]} == {3 * BLOCK}

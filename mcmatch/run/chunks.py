@@ -62,7 +62,10 @@ def run_chunk(study: Study, start: int, stop: int) -> dict[str, np.ndarray]:
 def chunk_ranges(samples: int, jobs: int, start: int = 0, size: int | None = None) -> list[tuple[int, int]]:
     """Contiguous ranges covering start..samples, whole random blocks each, a few per worker for balance.
 
-    `size` forces the chunk length (then rounded up to a multiple of :data:`CHUNK_QUANTUM`).
+    With several workers the last `jobs` chunks are cut into single blocks (a guided tail): the workers then finish
+    within about one block's time of each other instead of one whole chunk's (up to 0.1 s idle on a core measured
+    with 524 288-sample chunks). `size` forces the chunk length (then rounded up to a multiple of
+    :data:`CHUNK_QUANTUM`), with no guided tail.
     """
     if samples <= start:
         return []
@@ -71,7 +74,11 @@ def chunk_ranges(samples: int, jobs: int, start: int = 0, size: int | None = Non
         per_chunk = min(per_chunk, 8 * BLOCK)
     else:
         per_chunk = max(1, -(-int(size) // CHUNK_QUANTUM)) * CHUNK_QUANTUM
-    return [(s, min(samples, s + per_chunk)) for s in range(start, samples, per_chunk)]
+    ranges = [(s, min(samples, s + per_chunk)) for s in range(start, samples, per_chunk)]
+    if size is None and jobs > 1 and per_chunk > BLOCK and len(ranges) > jobs:
+        cut = ranges[-jobs][0]
+        ranges = ranges[:-jobs] + [(s, min(samples, s + BLOCK)) for s in range(cut, samples, BLOCK)]
+    return ranges
 
 
 def usable_cores() -> int:
