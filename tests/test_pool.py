@@ -155,3 +155,21 @@ def test_a_pools_chunks_end_in_single_blocks():
             assert sum(sizes[k] for k in tail) >= (jobs - 1) * big  # the last chunks of the workers, cut up
     forced = chunk_ranges(samples, 2, start=start, size=3 * BLOCK)
     assert {stop - begin for begin, stop in forced[:-1]} == {3 * BLOCK}
+
+
+def _plan_was_inherited(study, start, stop):
+    from mcmatch.run.study import _PLANS
+
+    return any(cached is study for cached, _ in _PLANS), os.getpid()
+
+
+def test_fork_workers_use_the_study_they_inherited(study, monkeypatch):
+    # Common practice, no source: a forked worker already holds the parent's study and its solve plan (built at
+    # the pilot); each chunk sends only a key and a range, and the plan is never rebuilt from a pickled copy
+    from mcmatch.run.study import fast_plan
+
+    monkeypatch.setenv("MCMATCH_POOL", "fork")
+    fast_plan(study)  # built here, before the fork
+    found = list(map_chunks(study, [(i * 100, (i + 1) * 100) for i in range(4)], 2, task=_plan_was_inherited))
+    assert all(hit for hit, _ in found) and os.getpid() not in {pid for _, pid in found}
+    assert pool._inherited == {}  # dropped when the map ended

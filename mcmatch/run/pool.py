@@ -48,6 +48,9 @@ THRESHOLD = {"fork": 2_000_000, "loky": 10_000_000}
 IN_FLIGHT_PER_WORKER = 2
 
 _running: dict[int, tuple[ProcessPoolExecutor, int]] = {}  # fork pools not shut down yet: id -> (pool, parent pid)
+# what a fork map's workers run: id -> (task, study), in place before the workers are forked, so they inherit the
+# very objects (the study's cached solve plan included) and each chunk sends only its key and range
+_inherited: dict[int, tuple[Callable[..., Any], Any]] = {}
 
 
 def pool_kind() -> str:
@@ -147,20 +150,28 @@ def _kill_workers(pool: ProcessPoolExecutor) -> None:
 atexit.register(shutdown, kill=True)  # a map never finished nor closed (its generator dropped unfinished)
 
 
+def _run_inherited(key: int, start: int, stop: int) -> Any:
+    """In a forked worker: the map's task on its study, both inherited at the fork (:data:`_inherited`)."""
+    task, study = _inherited[key]
+    return task(study, start, stop)
+
+
 def _fork_map(task: Callable[..., Any], study: Any, ranges: list[tuple[int, int]], jobs: int) -> Iterator[Any]:
     executor = fork_pool(jobs)
+    key = id(executor)
+    _inherited[key] = (task, study)  # before the first submit, which forks the workers
     pending: deque[Future] = deque()
     todo = iter(ranges)
     finished = False
     try:
         for start, stop in todo:
-            pending.append(executor.submit(task, study, start, stop))
+            pending.append(executor.submit(_run_inherited, key, start, stop))
             if len(pending) >= IN_FLIGHT_PER_WORKER * jobs:
                 break
         while pending:
             result = pending.popleft().result()
             for start, stop in todo:  # one out, one in
-                pending.append(executor.submit(task, study, start, stop))
+                pending.append(executor.submit(_run_inherited, key, start, stop))
                 break
             yield result
         finished = True
@@ -169,3 +180,4 @@ def _fork_map(task: Callable[..., Any], study: Any, ranges: list[tuple[int, int]
             for future in pending:
                 future.cancel()
         shutdown(executor, kill=not finished)
+        _inherited.pop(key, None)
