@@ -137,3 +137,15 @@ def test_the_report_header_says_a_warm_re_run_is_not_a_whole_command():
     warm = dict((label, value) for label, value, _ in header_items({"run": {**run, "warm": True}}))
     assert any(v == "0.59 s (whole command); study 0.36 s" for v in cold.values())
     assert any(v == "0.59 s (warm re-run in mcmatch watch); study 0.36 s" for v in warm.values())
+
+
+def test_the_report_header_gives_the_main_monte_carlos_time_and_workers():
+    # common practice, no source: the header says how long the main Monte Carlo took and on how many processes,
+    # so a designer reads the throughput apart from the start-up (summary run.monte_carlo_time_s, run.workers)
+    from mcmatch.report.sections.verdict import header_items
+
+    run = {"run_time_s": 2.31, "command_time_s": 2.62, "monte_carlo_time_s": 2.05, "workers": 2}
+    pooled = dict((label, value) for label, value, _ in header_items({"run": run}))["Run time"]
+    alone = dict((label, value) for label, value, _ in header_items({"run": {**run, "workers": 1}}))["Run time"]
+    assert pooled == "2.62 s (whole command); study 2.31 s; main Monte Carlo 2.05 s on 2 workers"
+    assert alone.endswith("main Monte Carlo 2.05 s in this process")

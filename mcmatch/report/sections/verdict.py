@@ -193,6 +193,10 @@ def header_items(summary: dict) -> list[tuple[str, str, str]]:
         run_time = f"{seconds:.3g} s ({what})" + (f"; study {study:.3g} s" if study is not None else "")
     else:
         run_time = f"{study:.3g} s (study only)" if study is not None else "\u2013"
+    monte_carlo, workers = finite(run.get("monte_carlo_time_s")), run.get("workers")
+    if monte_carlo is not None and run_time != "\u2013":
+        where = "in this process" if workers in (None, 1) else f"on {workers} workers"
+        run_time += f"; main Monte Carlo {monte_carlo:.3g} s {where}"
     items = [
         ("Run date", date, ""),
         ("mcmatch", str(run.get("mcmatch_version", "\u2013")), ""),
