@@ -142,3 +142,34 @@ def test_bank_channels_share_one_reference_solve():
     corr = np.corrcoef(errors)
     off = corr[~np.eye(4, dtype=bool)]
     assert (off > 0).all() and (off < 0.9).all()
+
+
+def test_scaling_pairs_one_worker_with_the_pool_on_the_same_numbers():
+    # Common practice, no source (DESIGN.md section 3: same seed, same numbers whatever the workers): the two-core
+    # figure is a ratio of paired runs of the run's own Monte Carlo; both worker counts must give the same
+    # statistics; no duration is asserted beyond being positive
+    from mcmatch.studies.scaling import monte_carlo_scaling
+
+    figures = monte_carlo_scaling(bench_config("simple", "nmos", samples=300_000), rounds=2, workers=2)
+    assert figures["samples"] == 300_000 and figures["workers"] == 2 and figures["rounds"] == 2
+    assert figures["same_numbers"] is True
+    assert all(t > 0 for t in figures["one_worker_s"] + figures["workers_s"])
+    ratios = [a / b for a, b in zip(figures["one_worker_s"], figures["workers_s"], strict=True)]
+    assert figures["ratios"] == ratios and figures["ratio"] == pytest.approx(float(np.median(ratios)))
+
+
+def test_scaling_is_in_the_json_and_a_negative_round_count_is_refused(capsys):
+    # DESIGN.md section 3: invalid input exits 2 naming the key; the JSON keeps every earlier key and adds scaling
+    assert main(["bench", "--scaling", "-1", "--no-latency"]) == 2
+    assert "--scaling" in capsys.readouterr().err
+    argv = ["bench", "--samples", "20000", "--reference-samples", "50", "--no-latency", "--json", "--scaling", "1"]
+    assert main(argv) == 0
+    out = json.loads(capsys.readouterr().out)
+    from mcmatch.run.chunks import usable_cores
+
+    if usable_cores() == 1:  # nothing to compare on one core, and the JSON says so
+        assert out["scaling"] is None
+    else:
+        assert out["scaling"]["same_numbers"] and out["scaling"]["rounds"] == 1 and out["agree"]
+    assert main([*argv[:-2]]) == 0
+    assert json.loads(capsys.readouterr().out)["scaling"] is None  # not asked for
