@@ -326,7 +326,7 @@ def test_report_command_rerenders_without_solving(demo_run, monkeypatch, tmp_pat
     # every place a command looks the solving entry points up
     for target in ("mcmatch.studies.pipeline.prepare", "mcmatch.studies.analyses.prepare", "mcmatch.run.study.prepare"):
         monkeypatch.setattr(target, no_solving)
-    for target in ("mcmatch.studies.analyses.monte_carlo", "mcmatch.run.chunks.monte_carlo"):
+    for target in ("mcmatch.studies.condition.monte_carlo", "mcmatch.run.chunks.monte_carlo"):
         monkeypatch.setattr(target, no_solving)
     assert main(["report", str(run), "--quiet"]) == 0
     # same summary, same samples (CSV round-trips floats exactly), same seed-free figures: the same bytes

@@ -7,7 +7,7 @@ hands the tables to the matching :mod:`mcmatch.analysis` module.
 
 from __future__ import annotations
 
-from typing import Any, Protocol
+from typing import Any
 
 import numpy as np
 
@@ -15,8 +15,6 @@ from mcmatch.config.schema import Config
 from mcmatch.errors import SolveError
 from mcmatch.model.operating_point import device_operating_points
 from mcmatch.model.sensitivity import measure_sensitivities, parameter_labels, parameter_sigmas
-from mcmatch.run.chunks import monte_carlo
-from mcmatch.run.pool import threshold
 from mcmatch.run.study import Study, nominal_measures, prepare
 from mcmatch.stats.area import (
     SEARCH_SPAN,
@@ -32,6 +30,7 @@ from mcmatch.stats.contributions import contribution_table
 from mcmatch.stats.corners import corner_entry, corner_grid, error_entry, worst_corners
 from mcmatch.stats.describe import describe
 from mcmatch.stats.yields import joint_passes, passes, yield_block, yield_extras
+from mcmatch.studies.condition import Options, condition_mc
 
 #: Samples per area point when [analysis.area] gives none: the main run's count, capped at this.
 AREA_DEFAULT_SAMPLES = 4000
@@ -40,21 +39,6 @@ AREA_MIN_SAMPLES = 200
 #: Random stream of the minimum-area confirmation run: independent of the sweep (which shares stream 0, the main
 #: run's, across its points: common random numbers), so the confirmation is a fresh estimate.
 CONFIRM_STREAM = 2
-
-
-class Options(Protocol):
-    """What the studies use of runner.RunOptions."""
-
-    jobs: int | None
-    backend: str | None
-
-
-def _mc(study: Study, samples: int, options: Options | None) -> dict[str, np.ndarray]:
-    """Monte Carlo of one condition; runs below the selected pool's threshold (run.pool.THRESHOLD) stay in-process (a
-    pool costs more than it saves there), whatever the options say. The numbers are the same either way."""
-    if samples < threshold():
-        return monte_carlo(study, samples, jobs=1)
-    return monte_carlo(study, samples, jobs=getattr(options, "jobs", None), backend=getattr(options, "backend", None))
 
 
 # --------------------------------------------------------------------------------------------- corners
@@ -75,7 +59,7 @@ def run_corners(config: Config, summary: dict, options: Options | None = None) -
             entries.append(error_entry(point, exc.message))
             continue
         guess = study.x_nominal
-        columns = _mc(study, samples, options)
+        columns = condition_mc(study, samples, options)
         entries.append(corner_entry(point, nominal_measures(study), columns, config.specs))
         entries[-1]["compliance"] = compliance_of_columns(device_operating_points(study.circuit, guess), columns)
     return entries, worst_corners(entries, summary["measures"], config.specs)
@@ -104,7 +88,7 @@ def _scaled_run(
         study = prepare(config.with_circuit(netlist), stream=stream)
     except SolveError as exc:
         return {**keys, "error": exc.message}, None
-    columns = _mc(study, samples, options)
+    columns = condition_mc(study, samples, options)
     keys["nominal"] = nominal_measures(study)
     return keys, columns
 
@@ -239,7 +223,7 @@ def run_analyses(config: Config, study: Study, summary: dict, options: Any = Non
     if config.analysis.contributions:
         out["contributions"] = run_contributions(study, summary)
     if config.analysis.sizing is not None:
-        from mcmatch.studies.sizing import run_sizing  # it builds on this module's Monte Carlo helper
+        from mcmatch.studies.sizing import run_sizing  # local: only a config with [analysis.sizing] needs it
 
         out["sizing"] = run_sizing(config, options)
     return out

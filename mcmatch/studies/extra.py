@@ -34,7 +34,7 @@ from mcmatch.stats.bank import bank_yield, channel_passes, mean_correlation
 from mcmatch.stats.describe import describe
 from mcmatch.stats.distributions import normal_sf
 from mcmatch.stats.yields import joint_passes, paired_difference, yield_block
-from mcmatch.studies.analyses import _mc
+from mcmatch.studies.condition import condition_mc
 
 #: Random stream of the per-die gradient draws of Pelgrom's distance term (device draws keep the main stream).
 PLACEMENT_STREAM = 8
@@ -65,7 +65,7 @@ def _placement_mc(
 ) -> dict[str, np.ndarray]:
     """Monte Carlo of one candidate: the main run's device draws plus, if configured, the random die gradient."""
     if s_vt == 0.0 and s_beta == 0.0:
-        return _mc(study, samples, options)
+        return condition_mc(study, samples, options)
     params = study.circuit.params
     parts = []
     for start in range(0, samples, BLOCK):
@@ -276,7 +276,7 @@ def run_bank(config: Config, study: Study, options: Any = None) -> dict | None:
     spec = config.analysis.bank
     given = spec.samples if spec is not None else None
     samples = given if given is not None else min(config.analysis.samples, BANK_DEFAULT_SAMPLES)
-    columns = _mc(study, samples, options)
+    columns = condition_mc(study, samples, options)
     passed = channel_passes(columns, channels, config.specs)
     out = bank_yield(passed, channels)
     out["mean_correlation"] = mean_correlation(columns, channels)

@@ -34,7 +34,7 @@ from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.stats import sizing as arith
 from mcmatch.stats.corners import GridPoint, corner_grid
 from mcmatch.stats.yields import joint_passes, yield_block
-from mcmatch.studies.analyses import _mc
+from mcmatch.studies.condition import condition_mc
 
 #: Random streams of the linear-model draws (mismatch; LINEAR_STREAM + 1 the global draws) and of the confirming
 #: Monte Carlo, apart from every other study's (main 0, area confirmation 2, high-sigma 7, placement 8; below the
@@ -311,7 +311,7 @@ def confirm(config: Config, ev: Evaluator, design: dict, aspects: tuple, conditi
         supply=condition.supply,
         stream=CONFIRM_STREAM,
     )
-    columns = _mc(study, sizing.samples, options)
+    columns = condition_mc(study, sizing.samples, options)
     failed = int((~np.asarray(columns["converged"], dtype=bool)).sum())
     ok = joint_passes(columns, config.specs)
     block = yield_block(int(ok.sum()), int(ok.size), config.analysis.target.confidence)
