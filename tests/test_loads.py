@@ -17,7 +17,7 @@ from mcmatch.cli import main
 from mcmatch.config.loading import config_from_dict
 from mcmatch.config.schema import AUTO
 from mcmatch.errors import ConfigError, SolveError
-from mcmatch.run import study as engine
+from mcmatch.run import loads
 from mcmatch.run.loads import resolve_loads
 from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.stats.area import scaled_netlist
@@ -60,7 +60,7 @@ def test_loading_does_not_solve_but_preparing_does(monkeypatch):
     def refuse(*args, **kwargs):
         raise AssertionError("solved")
 
-    monkeypatch.setattr(engine, "nominal_point", refuse)
+    monkeypatch.setattr(loads, "nominal_point", refuse)  # where the load sizing looks it up
     config = _config(FED)  # no solve while loading
     assert config.circuit.device("ILOAD1").value == AUTO
     with pytest.raises(AssertionError, match="solved"):
@@ -96,7 +96,7 @@ def test_check_exits_2_when_the_load_cannot_be_sized(tmp_path, monkeypatch, caps
     def no_point(circuit, guess=None):
         raise SolveError("no convergence")
 
-    monkeypatch.setattr(engine, "nominal_point", no_point)
+    monkeypatch.setattr(loads, "nominal_point", no_point)
     path = _write(tmp_path, 'template = "simple_mirror"\noutput_load = "current"')
     assert main(["check", str(path)]) == 2
     err = capsys.readouterr().err

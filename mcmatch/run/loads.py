@@ -13,6 +13,7 @@ from mcmatch.config.schema import AUTO, Config, LoadSizing, Netlist, Technology
 from mcmatch.errors import ConfigError, SolveError
 from mcmatch.model.circuit import compile_circuit
 from mcmatch.model.technology import device_parameters
+from mcmatch.solve.reference import nominal_point
 
 
 def resolve_loads(config: Config) -> Config:
@@ -30,8 +31,6 @@ def resolve_loads(config: Config) -> Config:
 
 def load_currents(sizing: LoadSizing, technology: Technology, temperature: float, file: str) -> dict[str, float]:
     """Load source name -> current [A] its output carries when held at its output voltage, at `temperature` [K]."""
-    from mcmatch.run.study import nominal_point  # study's prepare calls resolve_loads: imported when used
-
     held = sizing.held
     circuit = compile_circuit(held, device_parameters(held, technology, temperature))
     try:

@@ -15,14 +15,13 @@ from mcmatch.config.schema import Config, Measure
 from mcmatch.draws.mismatch import Sampling
 from mcmatch.draws.process import ProcessSpread, process_spread
 from mcmatch.errors import SolveError
-from mcmatch.model.circuit import GMIN, Circuit, compile_circuit, voltage_mask
+from mcmatch.model.circuit import Circuit, compile_circuit
 from mcmatch.model.technology import device_parameters
 from mcmatch.run.loads import resolve_loads
 from mcmatch.solve.fast import deviation_unknowns, solve_deviations
 from mcmatch.solve.measures import mna_measures
-from mcmatch.solve.newton import solve_operating_point
 from mcmatch.solve.plan import FastPlan, build_fast_plan, check_plan
-from mcmatch.solve.reference import supply_band, system_for
+from mcmatch.solve.reference import nominal_point, supply_band
 
 
 @dataclass(frozen=True)
@@ -60,21 +59,6 @@ def build_circuit(
     if supply is not None:
         circuit = circuit.with_voltage(*supply)
     return circuit
-
-
-def nominal_point(circuit: Circuit, guess: np.ndarray | None = None) -> np.ndarray:
-    """Unknowns (n,) of the circuit with no mismatch; SolveError if no strategy finds them."""
-    p = circuit.params
-    system = system_for(circuit, p.vth[None, :], p.beta[None, :])
-
-    def single(x: np.ndarray, rows: np.ndarray, source_scale: float = 1.0, gmin: float = GMIN):
-        return system(x, np.zeros(len(rows), dtype=np.intp), source_scale, gmin)
-
-    if guess is None:  # start with grounded voltage sources' nodes at their values (a Wilson mirror needs it)
-        guess = np.zeros(circuit.n_unknowns)
-        grounded = circuit.vsource_minus == circuit.ground
-        guess[circuit.vsource_plus[grounded]] = circuit.vsource_value[grounded]
-    return solve_operating_point(single, circuit.n_unknowns, voltage_mask(circuit), GMIN, guess=guess)[0]
 
 
 def prepare(

@@ -1,5 +1,6 @@
 """The reference solve path: the full MNA system, stacked Jacobians and :func:`solve_batch` with its retries; the
-band of plausible node voltages that tells a physical operating point from a runaway one.
+nominal point (:func:`nominal_point`, no mismatch); the band of plausible node voltages that tells a physical
+operating point from a runaway one.
 
 Used for circuits the fast path cannot reduce and for the samples it leaves unconverged. Pure numpy on a compiled
 circuit; nothing here knows of studies, draws or workers.
@@ -16,7 +17,7 @@ from mcmatch.draws.mismatch import perturbed
 from mcmatch.model.circuit import GMIN, Circuit, extend, residual_jacobian, voltage_mask
 from mcmatch.model.headroom import HEADROOM_COLUMN, min_headroom, mna_terminal
 from mcmatch.solve.measures import mna_measures
-from mcmatch.solve.newton import solve_batch
+from mcmatch.solve.newton import solve_batch, solve_operating_point
 
 #: Margin [V] and fraction of the nominal voltage span beyond which a node's voltage is implausible (supply_band).
 RAIL_MARGIN = 1.0
@@ -99,3 +100,18 @@ def reference_unknowns(
         system_for(circuit, vth, beta), reference_start(circuit, x_nominal, len(vth)), voltage_mask(circuit)
     )
     return result.x, result.converged
+
+
+def nominal_point(circuit: Circuit, guess: np.ndarray | None = None) -> np.ndarray:
+    """Unknowns (n,) of the circuit with no mismatch; SolveError if no strategy finds them."""
+    p = circuit.params
+    system = system_for(circuit, p.vth[None, :], p.beta[None, :])
+
+    def single(x: np.ndarray, rows: np.ndarray, source_scale: float = 1.0, gmin: float = GMIN):
+        return system(x, np.zeros(len(rows), dtype=np.intp), source_scale, gmin)
+
+    if guess is None:  # start with grounded voltage sources' nodes at their values (a Wilson mirror needs it)
+        guess = np.zeros(circuit.n_unknowns)
+        grounded = circuit.vsource_minus == circuit.ground
+        guess[circuit.vsource_plus[grounded]] = circuit.vsource_value[grounded]
+    return solve_operating_point(single, circuit.n_unknowns, voltage_mask(circuit), GMIN, guess=guess)[0]
