@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import statistics
+import sys
 
 from mcmatch.run.bench import CIRCUITS, LATENCY_RUNS, POLARITIES, REFERENCE_SAMPLES, TOLERANCE
 
@@ -78,11 +79,9 @@ def execute(args: argparse.Namespace) -> int:
     scaling = None
     if args.scaling:
         from mcmatch.run.bench import bench_config
-        from mcmatch.run.chunks import usable_cores
         from mcmatch.studies.scaling import monte_carlo_scaling
 
-        if usable_cores() > 1:
-            scaling = monte_carlo_scaling(bench_config(args.circuit, args.polarity, args.samples), args.scaling)
+        scaling = monte_carlo_scaling(bench_config(args.circuit, args.polarity, args.samples), args.scaling)
     d = {**result.as_dict(), "scaling": scaling}
     if args.json:
         print(json.dumps(d, allow_nan=False))
@@ -109,13 +108,9 @@ def execute(args: argparse.Namespace) -> int:
         if args.scaling:
             _print_scaling(scaling)
     if scaling is not None and not scaling["same_numbers"]:
-        import sys
-
         print("mcmatch: error: one worker and the pool gave different statistics", file=sys.stderr)
         return 1
     if not result.agree:
-        import sys
-
         print(
             f"mcmatch: error: engine and reference disagree (max relative difference {result.max_rel_diff:.3g}, "
             f"{result.reference_failures} reference failures)",

@@ -16,11 +16,14 @@ from mcmatch.run.study import nominal_measures, prepare
 from mcmatch.studies.pipeline import RunOptions, stream_statistics
 
 
-def monte_carlo_scaling(config: Config, rounds: int = 3, workers: int | None = None) -> dict:
+def monte_carlo_scaling(config: Config, rounds: int = 3, workers: int | None = None) -> dict | None:
     """Wall time [s] of the config's main Monte Carlo on 1 worker and on `workers` (default: all cores), `rounds`
     pairs, the order swapped every round after an untimed warm-up; ratios per pair, their median, the throughputs
-    [samples/s] at the median times, and whether both worker counts gave the same statistics."""
+    [samples/s] at the median times, and whether both worker counts gave the same statistics. None when there is
+    only one worker to give it (nothing to compare)."""
     workers = workers or usable_cores()
+    if workers < 2:
+        return None
     config = resolve_loads(config)
     study = prepare(config)
     nominal = nominal_measures(study)
